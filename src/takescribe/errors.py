@@ -1,0 +1,74 @@
+"""Typed errors of takescribe: one root, one subclass per kind of failure.
+
+Every subclass also inherits the matching builtin, so ``except ValueError``
+and ``except OSError`` keep working for callers who do not know our names.
+
+Exit codes used by the command line (documented in the README):
+
+====  ==========================================================
+code  meaning
+====  ==========================================================
+0     success
+1     bad input (a file that cannot be read, a score that does not
+      fit the take, an option value out of range)
+2     usage error (unknown option, missing argument; argparse)
+3     internal error (a bug: please report it with ``--debug``)
+4     output refused (the file exists and ``--force`` was not given,
+      or the folder cannot be written)
+====  ==========================================================
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "TakescribeError",
+    "InputError",
+    "AudioError",
+    "ScoreError",
+    "NoteListError",
+    "DictionaryError",
+    "OutputError",
+    "EXIT_OK",
+    "EXIT_BAD_INPUT",
+    "EXIT_USAGE",
+    "EXIT_INTERNAL",
+    "EXIT_OUTPUT",
+]
+
+EXIT_OK = 0
+EXIT_BAD_INPUT = 1
+EXIT_USAGE = 2
+EXIT_INTERNAL = 3
+EXIT_OUTPUT = 4
+
+
+class TakescribeError(Exception):
+    """Root of every error takescribe raises on purpose."""
+
+    exit_code = EXIT_BAD_INPUT
+
+
+class InputError(TakescribeError, ValueError):
+    """A value or file given by the user cannot be used."""
+
+
+class AudioError(InputError):
+    """An audio file is missing, unreadable, corrupt or unusable."""
+
+
+class ScoreError(InputError):
+    """A reference part (MusicXML or MIDI) is missing, unreadable or unusable."""
+
+
+class NoteListError(InputError):
+    """A note list (MAPS-style text, MIDI) cannot be read."""
+
+
+class DictionaryError(InputError):
+    """A pitch-template dictionary file is unreadable or does not fit."""
+
+
+class OutputError(TakescribeError, OSError):
+    """An output cannot be written (exists without ``--force``, no permission)."""
+
+    exit_code = EXIT_OUTPUT
