@@ -1,0 +1,191 @@
+"""Glue: the stages of takescribe chained into the jobs the command line offers.
+
+Each function here takes arrays or paths, calls the stage modules in data-flow
+order and returns values; no argument parsing (that is :mod:`takescribe.cli`)
+and no signal processing of its own.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
+from .instruments import Instrument, resolve_instrument
+from .nmf import Factorization, decompose
+from .notes import Note
+from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
+from .tracking import activations_to_notes
+
+__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "DEFAULT_SETTINGS"]
+
+
+@dataclass(frozen=True)
+class TranscriptionSettings:
+    """Knobs of blind transcription (defaults tuned on the tuning split of the fixture corpus).
+
+    Attributes
+    ----------
+    beta : float
+        β-divergence of the factorization (1 = KL).
+    n_iter : int
+        Iterations of each factorization pass.
+    continuity, sparsity : float
+        Virtanen's temporal-continuity and sparseness weights.
+    adapt : bool
+        Semi-learned mode: adapt the partial amplitudes to the take, then re-estimate H.
+    adapt_iter : int
+    onset_threshold, offset_threshold, release_ratio, reonset_rise : float
+        Note-tracking levels (fractions of the loudest activation).
+    min_duration : float
+        Seconds.
+    onset_shift : float
+        Seconds added to note times to compensate the analysis delay.
+    """
+
+    beta: float = 1.0
+    n_iter: int = 60
+    tol: float = 1e-4
+    continuity: float = 0.0
+    sparsity: float = 0.0
+    adapt: bool = True
+    adapt_iter: int = 10
+    onset_threshold: float = 0.12
+    offset_threshold: float = 0.05
+    release_ratio: float = 0.08
+    reonset_rise: float = 0.08
+    min_duration: float = 0.05
+    onset_shift: float = 0.0
+    smoothing: int = 3
+
+
+DEFAULT_SETTINGS = TranscriptionSettings()
+
+
+@dataclass(frozen=True)
+class Transcription:
+    """What blind or score-informed transcription produces.
+
+    Attributes
+    ----------
+    notes : list of Note
+    spectrogram : Spectrogram
+    dictionary : Dictionary
+        The dictionary used for the final pass (adapted when semi-learned).
+    initial_dictionary : Dictionary
+    H : np.ndarray (n_pitches, n_frames)
+        Final activations.
+    H_initial : np.ndarray (n_pitches, n_frames)
+        Activations of the first pass (before adaptation).
+    instrument : Instrument
+    timings : dict
+        Seconds spent per stage.
+    """
+
+    notes: list[Note]
+    spectrogram: Spectrogram
+    dictionary: Dictionary
+    initial_dictionary: Dictionary
+    H: np.ndarray
+    H_initial: np.ndarray
+    instrument: Instrument
+    timings: dict = field(default_factory=dict)
+
+
+def _normalize(V: np.ndarray) -> tuple[np.ndarray, float]:
+    """Scale V so an average frame sums to 1 (keeps penalty weights scale-free)."""
+    scale = float(V.sum()) / max(V.shape[1], 1)
+    if scale <= 0:
+        return V, 1.0
+    return V / np.float32(scale), scale
+
+
+def transcribe(
+    y: np.ndarray,
+    sr: int = ANALYSIS_SR,
+    *,
+    instrument: "str | int | Instrument" = "piano",
+    dictionary: Dictionary | None = None,
+    settings: TranscriptionSettings = DEFAULT_SETTINGS,
+    mask: np.ndarray | None = None,
+    mask_penalty: float = 0.0,
+    onset_thresholds: np.ndarray | None = None,
+    spectrogram: Spectrogram | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> Transcription:
+    """Transcribe a mono signal into note events (blind, or guided by a mask on H).
+
+    Parameters
+    ----------
+    y : np.ndarray (n_samples,)
+        Mono float signal at ``sr``.
+    sr : int
+    instrument : str, int or Instrument
+        Preset name or GM program.
+    dictionary : Dictionary, optional
+        A calibrated dictionary (e.g. from ``takescribe dictionary learn``); rebuilt on
+        this take's frequency axis.
+    settings : TranscriptionSettings
+    mask, mask_penalty :
+        Score prior on H (see :func:`takescribe.nmf.decompose`).
+    onset_thresholds : np.ndarray (n_pitches, n_frames), optional
+        Per-pitch, per-frame onset thresholds (score-informed dual threshold).
+    spectrogram : Spectrogram, optional
+        Precomputed spectrogram of ``y``.
+    progress : callable, optional
+        Called with a short stage description.
+
+    Returns
+    -------
+    Transcription
+    """
+    say = progress or (lambda message: None)
+    timings: dict[str, float] = {}
+    preset = resolve_instrument(instrument)
+    t0 = time.perf_counter()
+    if spectrogram is None:
+        say("spectrogram")
+        spectrogram = compute_spectrogram(y, sr)
+    timings["spectrogram"] = time.perf_counter() - t0
+    if dictionary is None:
+        initial = harmonic_dictionary(spectrogram, instrument=preset)
+    else:
+        initial = validate_dictionary(dictionary.retuned(spectrogram.frequencies), spectrogram)
+    V, _ = _normalize(spectrogram.V)
+    empty = np.zeros((initial.n_pitches, spectrogram.n_frames), np.float32)
+    if not np.any(V):
+        warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
+        return Transcription([], spectrogram, initial, initial, empty, empty, preset, timings)
+    t0 = time.perf_counter()
+    say("factorization")
+    common = dict(beta=settings.beta, n_iter=settings.n_iter, tol=settings.tol, continuity=settings.continuity,
+                  sparsity=settings.sparsity, mask=mask, mask_penalty=mask_penalty)
+    first: Factorization = decompose(V, initial.W, **common)
+    final_dictionary, H = initial, first.H
+    if settings.adapt:
+        say("adapting templates to the instrument")
+        final_dictionary = adapt_dictionary(V, initial, first.H, n_iter=settings.adapt_iter, beta=settings.beta,
+                                            min_activation=0.01)
+        H = decompose(V, final_dictionary.W, H_init=first.H, **common).H
+    timings["factorization"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    say("note tracking")
+    notes = activations_to_notes(
+        H,
+        final_dictionary.pitches,
+        spectrogram.frame_times,
+        onset_threshold=settings.onset_threshold if onset_thresholds is None else onset_thresholds,
+        offset_threshold=settings.offset_threshold,
+        release_ratio=settings.release_ratio,
+        reonset_rise=settings.reonset_rise,
+        min_duration=settings.min_duration,
+        smoothing=settings.smoothing,
+        polyphonic=preset.polyphonic,
+        onset_shift=settings.onset_shift,
+    )
+    timings["tracking"] = time.perf_counter() - t0
+    return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H, preset, timings)

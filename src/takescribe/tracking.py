@@ -1,0 +1,209 @@
+"""Activations → note events: normalise, smooth, find onsets, hysteresis, minimum duration.
+
+Method
+------
+1. ``H`` is divided by one global reference level (its largest value), so
+   thresholds are fractions of the loudest activation in the take; per-pitch
+   normalisation would promote noise on pitches that are never played.
+2. A running median over ``smoothing`` frames removes single-frame spikes.
+3. *Melodic* instruments (one note at a time) first pass through a Viterbi
+   decoding over the states {silence, pitch 1…K} (``librosa.sequence.viterbi``)
+   whose emission is the normalised activation and whose transitions favour
+   staying; only the decoded pitch keeps its activation in each frame.
+4. For each pitch, regions above ``offset_threshold`` that reach
+   ``onset_threshold`` are note candidates (hysteresis). Inside a region, a new
+   onset is detected where the activation rises by at least ``reonset_rise`` (a
+   fraction of the reference) over ``reonset_frames`` frames after having fallen:
+   this splits repeated notes of one pitch.
+5. A note's onset is placed at the steepest rise before its first threshold
+   crossing; it ends where the region ends, at the next onset of the same pitch, or
+   where the activation falls below ``release_ratio`` of the note's own peak,
+   whichever comes first. Notes shorter than ``min_duration`` are dropped.
+6. Velocity is ``round(127 · sqrt(peak / reference))`` clipped to 1..127: a
+   loudness-like compression of the activation peak (our own mapping, no source).
+
+``thresholds`` may be an array (n_pitches, n_frames) of onset thresholds instead of
+one number: score-informed tracking uses it for its dual threshold.
+"""
+
+from __future__ import annotations
+
+import librosa
+import numpy as np
+import scipy.ndimage
+
+from .errors import InputError
+from .notes import Note, sort_notes
+
+__all__ = ["activations_to_notes", "monophonic_activations", "validate_activations"]
+
+
+def validate_activations(H: np.ndarray, pitches: np.ndarray, frame_times: np.ndarray) -> None:
+    """Check shapes and values of the tracking inputs."""
+    if not isinstance(H, np.ndarray) or H.ndim != 2:
+        raise InputError(f"H must be a 2-D array (n_pitches, n_frames), got {getattr(H, 'shape', None)}")
+    if len(pitches) != H.shape[0]:
+        raise InputError(f"pitches has {len(pitches)} entries but H has {H.shape[0]} rows")
+    if len(frame_times) != H.shape[1]:
+        raise InputError(f"frame_times has {len(frame_times)} entries but H has {H.shape[1]} frames")
+    if not np.all(np.isfinite(H)) or np.any(H < 0):
+        raise InputError("H must be finite and non-negative")
+    p = np.asarray(pitches)
+    if np.any((p < 0) | (p > 127)):
+        raise InputError("pitches look wrong: they must be MIDI numbers 0..127 (this function takes MIDI, not Hz)")
+
+
+def monophonic_activations(Hn: np.ndarray, *, silence_level: float = 0.1, stay_probability: float = 0.96) -> np.ndarray:
+    """Keep one pitch per frame chosen by Viterbi decoding over {silence, pitches}.
+
+    Parameters
+    ----------
+    Hn : np.ndarray (n_pitches, n_frames)
+        Normalised activations (reference level 1).
+    silence_level : float
+        Emission score of the silence state (an activation below it loses to silence).
+    stay_probability : float
+        Probability of keeping the same state from one frame to the next.
+    """
+    K, T = Hn.shape
+    if T == 0 or K == 0:
+        return Hn.copy()
+    scores = np.vstack([np.full((1, T), silence_level, dtype=np.float64), Hn.astype(np.float64)])
+    prob = scores / np.maximum(scores.sum(axis=0, keepdims=True), 1e-12)
+    n_states = K + 1
+    switch = (1.0 - stay_probability) / (n_states - 1)
+    transition = np.full((n_states, n_states), switch)
+    np.fill_diagonal(transition, stay_probability)
+    path = librosa.sequence.viterbi(prob, transition)
+    out = np.zeros_like(Hn)
+    frames = np.nonzero(path > 0)[0]
+    out[path[frames] - 1, frames] = Hn[path[frames] - 1, frames]
+    return out
+
+
+def _split_onsets(a: np.ndarray, start: int, stop: int, rise: float, frames: int) -> list[int]:
+    """Onset frames inside region [start, stop) of one pitch's activation ``a``."""
+    onsets = [start]
+    if stop - start <= 2 * frames:
+        return onsets
+    seg = a[start:stop]
+    # minimum over the previous `frames` frames (edge-padded at the region start)
+    padded = np.concatenate([np.full(frames, seg[0]), seg])
+    prev_min = np.lib.stride_tricks.sliding_window_view(padded[:-1], frames).min(axis=1)
+    gain = seg - prev_min
+    candidates = np.nonzero((gain[1:-1] >= rise) & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
+    last = 0
+    for c in candidates:
+        if c - last >= 2 * frames:
+            onsets.append(start + int(c) - frames // 2)
+            last = c
+    return onsets
+
+
+def activations_to_notes(
+    H: np.ndarray,
+    pitches: np.ndarray,
+    frame_times: np.ndarray,
+    *,
+    onset_threshold: "float | np.ndarray" = 0.12,
+    offset_threshold: float = 0.05,
+    release_ratio: float = 0.08,
+    reonset_rise: float = 0.08,
+    reonset_frames: int = 4,
+    min_duration: float = 0.05,
+    smoothing: int = 3,
+    polyphonic: bool = True,
+    reference: float | None = None,
+    onset_shift: float = 0.0,
+) -> list[Note]:
+    """Turn activations into note events.
+
+    Parameters
+    ----------
+    H : np.ndarray (n_pitches, n_frames)
+        Activations.
+    pitches : np.ndarray (n_pitches,)
+        MIDI pitch of each row.
+    frame_times : np.ndarray (n_frames,)
+        Time in seconds of each frame.
+    onset_threshold : float or np.ndarray (n_pitches, n_frames)
+        Level (fraction of ``reference``) a note must reach.
+    offset_threshold : float
+        Level below which a note ends (hysteresis low threshold).
+    release_ratio : float
+        A note also ends when it falls below this fraction of its own peak.
+    reonset_rise, reonset_frames : float, int
+        Rise (fraction of the reference) within that many frames that starts a new note
+        of the same pitch.
+    min_duration : float
+        Shortest note kept, in seconds.
+    smoothing : int
+        Median filter length in frames (1 = none).
+    polyphonic : bool
+        False applies the melodic Viterbi decoding first.
+    reference : float, optional
+        Normalisation level; defaults to ``H.max()``.
+    onset_shift : float
+        Seconds added to every note time (analysis latency compensation).
+
+    Returns
+    -------
+    list of Note
+        Sorted by onset, then pitch.
+    """
+    H = np.asarray(H)
+    pitches = np.asarray(pitches)
+    frame_times = np.asarray(frame_times, dtype=float)
+    validate_activations(H, pitches, frame_times)
+    K, T = H.shape
+    if T < 2 or K == 0:
+        return []
+    ref = float(H.max()) if reference is None else float(reference)
+    if ref <= 0:
+        return []
+    Hn = H.astype(np.float64) / ref
+    if smoothing > 1:
+        Hn = scipy.ndimage.median_filter(Hn, size=(1, int(smoothing)), mode="nearest")
+    if not polyphonic:
+        Hn = monophonic_activations(Hn, silence_level=offset_threshold * 2)
+    thresholds = np.broadcast_to(np.asarray(onset_threshold, dtype=float), Hn.shape) if np.ndim(onset_threshold) else None
+    hop = float(np.median(np.diff(frame_times))) if T > 1 else 0.01
+    end_time = frame_times[-1] + hop
+    notes: list[Note] = []
+    for k in range(K):
+        a = Hn[k]
+        above = a > offset_threshold
+        if not above.any():
+            continue
+        labels, n_regions = scipy.ndimage.label(above)
+        if n_regions == 0:
+            continue
+        slices = scipy.ndimage.find_objects(labels)
+        for sl in slices:
+            start, stop = sl[0].start, sl[0].stop
+            onsets = _split_onsets(a, start, stop, reonset_rise, reonset_frames)
+            for i, on in enumerate(onsets):
+                nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
+                part = a[on:nxt]
+                if len(part) == 0:
+                    continue
+                peak_i = int(np.argmax(part))
+                peak = float(part[peak_i])
+                level = float(thresholds[k, on + peak_i]) if thresholds is not None else float(onset_threshold)
+                if peak < level:
+                    continue
+                # onset at the steepest rise before the peak
+                rise_part = np.diff(a[max(on - 1, 0): on + peak_i + 1])
+                onset_frame = max(on - 1, 0) + int(np.argmax(rise_part)) + 1 if len(rise_part) else on
+                onset_frame = min(onset_frame, on + peak_i)
+                # release: first frame after the peak below release_ratio * peak
+                after = part[peak_i:]
+                low = np.nonzero(after < release_ratio * peak)[0]
+                end_frame = on + peak_i + (int(low[0]) if len(low) else len(after))
+                onset = frame_times[onset_frame] + onset_shift
+                offset = (frame_times[end_frame] if end_frame < T else end_time) + onset_shift
+                if offset - onset < min_duration:
+                    continue
+                velocity = int(np.clip(round(127 * np.sqrt(min(peak, 1.0))), 1, 127))
+                notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), int(pitches[k]), velocity))
+    return sort_notes(notes)
