@@ -1,0 +1,1081 @@
+"""Findings of a take against its reference part: wrong, missed, extra, early, late, held notes,
+hesitations and restarts.
+
+The comparison works on note lists: the reference part (:mod:`takescribe.score`), the
+score-to-take alignment (:mod:`takescribe.align`) and the notes heard in the take (ground
+truth or a transcription, :class:`takescribe.notes.Note`).
+
+Method
+------
+1. Every reference note is placed in the take through the alignment (``score_to_take``).
+2. Anchors: played notes are matched to reference notes of the same pitch with
+   :func:`takescribe.evaluate.match_notes` (maximum bipartite matching, mir_eval
+   conventions) in a wide window (``anchor_window``).
+3. Restarts: a run of at least ``min_restart_notes`` unmatched played notes that repeats a
+   stretch of the part already (or later) played, shifted by one consistent time offset,
+   is a second attempt at the same bars. The earlier attempt is the abandoned one: its
+   notes become ``extra`` findings linked to ONE ``restart`` finding, and the timing model
+   is cut at the bar the player went back to.
+4. Local tempo: reference onsets are grouped (chords), and the take time of each group is
+   predicted by a robust line (Theil–Sen) through its neighbouring groups
+   (``neighbours`` on each side, the group itself left out). Gradual tempo drift is
+   followed by the line, so only the local residual counts as early or late.
+5. Hesitations: walking through the part, a group that arrives more than
+   ``hesitation_threshold`` seconds after the line through the groups before it *and*
+   whose delay persists on the next group (the music resumes shifted, rather than one
+   late note) opens a new timing segment. The pause is ONE ``hesitation`` finding; the
+   delayed notes are judged against the tempo after the pause and are reported ``late``
+   only if they are late against that tempo as well, with ``linked_to`` pointing to the
+   hesitation.
+6. Final matching: same-pitch matching in ``timing_tolerance + match_margin`` around the
+   local-tempo prediction, then, among the leftovers, pitch-free matching pairs
+   ``wrong_pitch`` notes; the remaining reference notes are ``missed`` and the remaining
+   played notes ``extra``.
+7. Durations: a correctly pitched note held for less than ``1 - duration_tolerance`` or
+   more than ``1 + duration_tolerance`` times its written length at the local tempo (and
+   off by more than ``timing_tolerance`` seconds) is ``held_short`` / ``held_long``.
+
+Conventions
+-----------
+- Times are seconds in the take; pitches are MIDI numbers (C4 = 60, A4 = 69 = 440 Hz).
+- The default timing tolerance, 100 ms, is wider than the 50 ms onset tolerance of
+  mir_eval's transcription metrics on purpose: a teacher cares about audible timing
+  errors, not transcription precision (common practice, no source).
+- A "beat" in the tempo curve is a quarter note of the part.
+- Without an alignment (``alignment=None``), the take is assumed to follow the written
+  tempo from time 0.
+
+JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
+----------------------------------------------------------------
+::
+
+    {
+      "schema": "takescribe-findings/1",
+      "summary": {
+        "notes_in_part": int,            # reference notes
+        "notes_played": int,             # played notes given
+        "notes_played_correctly": int,   # right pitch, no timing or duration finding
+        "counts": {kind: int, ...},      # one entry per kind in KINDS
+        "findings_per_minute": float,
+        "tempo_curve": [{"measure": int, "score_quarters": float, "take_time": float,
+                         "seconds_per_beat": float, "beats_per_minute": float}, ...],
+        "bars_with_most_findings": [{"measure": int, "findings": int}, ...],
+        "alignment_confidence": float | null,
+        "take_duration": float
+      },
+      "findings": [
+        {"id": int, "kind": str, "measure": int | null, "beat": float | null,
+         "time": float,                  # seconds in the take (missed: where it should sound)
+         "expected_pitch": int | null, "played_pitch": int | null,
+         "deviation": float | null,      # seconds (timing, duration, pause) or semitones
+         "reference_index": int | null, "played_index": int | null,
+         "linked_to": int | null,        # id of the hesitation/restart this belongs to
+         "from_time": float | null, "to_time": float | null,         # restart only
+         "from_measure": int | null, "from_beat": float | null,      # restart only
+         "to_measure": int | null, "to_beat": float | null,          # restart only
+         "text": str}, ...
+      ],
+      "note_status": [str, ...],         # per reference note: played / wrong_pitch / missed
+      "played_status": [str, ...]        # per played note: matched / extra
+    }
+
+Deviation signs: ``early`` is negative and ``late`` positive (played minus expected,
+seconds); ``held_short`` negative and ``held_long`` positive (played minus expected
+length, seconds); ``wrong_pitch`` is played minus expected pitch in semitones;
+``hesitation`` is the length of the pause in seconds; ``restart`` is how much of the part,
+in seconds at the written tempo, was played again.
+"""
+
+from __future__ import annotations
+
+import json
+from collections import Counter
+from dataclasses import dataclass, field
+from typing import Any, Callable, Sequence
+
+import numpy as np
+
+from .errors import InputError
+from .notes import Note, validate_notes
+
+__all__ = [
+    "KINDS",
+    "Finding",
+    "Comparison",
+    "compare_notes",
+    "findings_json",
+    "pitch_name",
+    "validate_comparison_options",
+]
+
+KINDS = (
+    "wrong_pitch",
+    "missed",
+    "extra",
+    "early",
+    "late",
+    "held_short",
+    "held_long",
+    "hesitation",
+    "restart",
+)
+
+_NOTE_NAMES = ("C", "C#", "D", "Eb", "E", "F", "F#", "G", "G#", "A", "Bb", "B")
+
+
+def pitch_name(pitch: int) -> str:
+    """Scientific pitch name of a MIDI number, C4 = 60 (common practice, no source)."""
+    pitch = int(pitch)
+    return f"{_NOTE_NAMES[pitch % 12]}{pitch // 12 - 1}"
+
+
+@dataclass(frozen=True, slots=True)
+class Finding:
+    """One thing a teacher may want to look at.
+
+    Parameters
+    ----------
+    id : int
+        1-based, in time order.
+    kind : str
+        One of :data:`KINDS`.
+    time : float
+        Seconds in the take (for a missed note, where it should have sounded).
+    measure, beat : int or None, float or None
+        Position in the part (measure number as written, beat as given by the reference).
+    expected_pitch, played_pitch : int or None
+        MIDI numbers.
+    deviation : float or None
+        Seconds or semitones (see the module docstring for signs).
+    reference_index, played_index : int or None
+        Index of the reference note / played note concerned.
+    linked_to : int or None
+        Id of the hesitation or restart finding this one belongs to.
+    text : str
+        Short teacher-facing sentence.
+    """
+
+    id: int
+    kind: str
+    time: float
+    measure: int | None = None
+    beat: float | None = None
+    expected_pitch: int | None = None
+    played_pitch: int | None = None
+    deviation: float | None = None
+    reference_index: int | None = None
+    played_index: int | None = None
+    linked_to: int | None = None
+    from_time: float | None = None
+    to_time: float | None = None
+    from_measure: int | None = None
+    from_beat: float | None = None
+    to_measure: int | None = None
+    to_beat: float | None = None
+    text: str = ""
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            raise InputError(f"finding kind must be one of {', '.join(KINDS)}; got {self.kind!r}")
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict (field names as in the module docstring)."""
+        return {
+            "id": self.id,
+            "kind": self.kind,
+            "measure": self.measure,
+            "beat": self.beat,
+            "time": _round(self.time),
+            "expected_pitch": self.expected_pitch,
+            "played_pitch": self.played_pitch,
+            "deviation": _round(self.deviation),
+            "reference_index": self.reference_index,
+            "played_index": self.played_index,
+            "linked_to": self.linked_to,
+            "from_time": _round(self.from_time),
+            "to_time": _round(self.to_time),
+            "from_measure": self.from_measure,
+            "from_beat": self.from_beat,
+            "to_measure": self.to_measure,
+            "to_beat": self.to_beat,
+            "text": self.text,
+        }
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Result of :func:`compare_notes`.
+
+    Attributes
+    ----------
+    findings : tuple of Finding
+        Sorted by time.
+    summary : dict
+        See the module docstring.
+    note_status : tuple of str
+        Per reference note: ``"played"``, ``"wrong_pitch"`` or ``"missed"``.
+    played_status : tuple of str
+        Per played note: ``"matched"`` (paired with a reference note, right or wrong
+        pitch) or ``"extra"``.
+    pairs : tuple of (int, int)
+        (reference index, played index) of every pairing, right or wrong pitch.
+    expected_onsets, expected_offsets : ndarray (n_ref,)
+        Where each reference note should start and end in the take, at the local tempo.
+    played_notes : tuple of Note
+        The played notes, in the order given (``played_index`` refers to it).
+    measure_times : dict
+        Measure number -> take time (seconds) at which the measure starts.
+    """
+
+    findings: tuple
+    summary: dict
+    note_status: tuple
+    played_status: tuple
+    pairs: tuple = ()
+    expected_onsets: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    expected_offsets: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    played_notes: tuple = ()
+    measure_times: dict = field(default_factory=dict)
+
+    def to_json(self) -> dict:
+        """JSON-ready dict (schema in the module docstring)."""
+        return findings_json(self)
+
+    def dumps(self) -> str:
+        """The JSON document as text (UTF-8, indented)."""
+        return json.dumps(self.to_json(), indent=2, ensure_ascii=False)
+
+
+def findings_json(comparison: Comparison) -> dict:
+    """JSON-ready dict of a :class:`Comparison` (schema in the module docstring)."""
+    return {
+        "schema": "takescribe-findings/1",
+        "summary": comparison.summary,
+        "findings": [f.to_dict() for f in comparison.findings],
+        "note_status": list(comparison.note_status),
+        "played_status": list(comparison.played_status),
+    }
+
+
+def _round(x: float | None, digits: int = 4) -> float | None:
+    return None if x is None else round(float(x), digits)
+
+
+# --------------------------------------------------------------------------- validation
+
+
+def validate_comparison_options(
+    *,
+    timing_tolerance: float,
+    duration_tolerance: float,
+    match_margin: float,
+    anchor_window: float,
+    hesitation_threshold: float,
+    neighbours: int,
+    min_restart_notes: int,
+) -> None:
+    """Check the numeric options of :func:`compare_notes`; raise ``InputError`` naming the bad one."""
+    for name, value, low, high in (
+        ("timing_tolerance", timing_tolerance, 0.0, 2.0),
+        ("duration_tolerance", duration_tolerance, 0.0, 10.0),
+        ("match_margin", match_margin, 0.0, 2.0),
+        ("anchor_window", anchor_window, 0.0, 10.0),
+        ("hesitation_threshold", hesitation_threshold, 0.0, 30.0),
+    ):
+        if not isinstance(value, (int, float, np.floating, np.integer)) or not np.isfinite(value):
+            raise InputError(f"{name} must be a finite number of seconds, got {value!r}")
+        if not low < float(value) <= high:
+            raise InputError(f"{name} must be in range ({low}, {high}], got {value!r}")
+    if not isinstance(neighbours, (int, np.integer)) or not 1 <= neighbours <= 50:
+        raise InputError(f"neighbours must be an integer in range 1..50, got {neighbours!r}")
+    if not isinstance(min_restart_notes, (int, np.integer)) or not 2 <= min_restart_notes <= 100:
+        raise InputError(f"min_restart_notes must be an integer in range 2..100, got {min_restart_notes!r}")
+
+
+# --------------------------------------------------------------------------- reference access
+
+
+@dataclass(frozen=True)
+class _Part:
+    """The reference as arrays (one name and unit per quantity)."""
+
+    onsets: np.ndarray  # score seconds at the written tempo
+    offsets: np.ndarray
+    pitches: np.ndarray  # MIDI
+    quarters: np.ndarray  # onset in quarter notes
+    measures: np.ndarray  # int, -1 when unknown
+    beats: np.ndarray  # float, nan when unknown
+    measure_position: Callable[[float], tuple[int | None, float | None]]
+    measure_starts: dict  # measure -> score seconds
+
+
+def _part_from_reference(reference: Any) -> _Part:
+    notes = getattr(reference, "notes", None)
+    if notes is None:
+        raise TypeError(f"reference must have a .notes sequence (takescribe.score.Reference), got {type(reference).__name__}")
+    notes = list(notes)
+    n = len(notes)
+    onsets = np.array([float(x.onset) for x in notes], dtype=float)
+    offsets = np.array([float(x.offset) for x in notes], dtype=float)
+    pitches = np.array([int(x.pitch) for x in notes], dtype=int)
+    if n and (np.any(~np.isfinite(onsets)) or np.any(offsets < onsets)):
+        raise InputError("reference notes must have finite onsets and offsets after their onsets (seconds)")
+    quarters = np.array([float(getattr(x, "onset_quarters", np.nan)) for x in notes], dtype=float)
+    if n and np.any(~np.isfinite(quarters)):
+        quarters = onsets * 2.0  # written tempo unknown: 120 quarter notes per minute
+    measures = np.array([int(getattr(x, "measure", -1) if getattr(x, "measure", None) is not None else -1) for x in notes])
+    beats = np.array([float(getattr(x, "beat", np.nan) if getattr(x, "beat", None) is not None else np.nan) for x in notes])
+
+    order = np.argsort(onsets, kind="stable")
+    s_sorted, q_sorted = onsets[order], quarters[order]
+
+    def seconds_to_quarters(s: float) -> float:
+        if n == 0:
+            return 2.0 * s
+        if n == 1 or s_sorted[-1] == s_sorted[0]:
+            return float(q_sorted[0] + 2.0 * (s - s_sorted[0]))
+        if s <= s_sorted[0] or s >= s_sorted[-1]:
+            # extrapolate at the overall rate of the part
+            rate = (q_sorted[-1] - q_sorted[0]) / (s_sorted[-1] - s_sorted[0])
+            ref_s, ref_q = (s_sorted[0], q_sorted[0]) if s <= s_sorted[0] else (s_sorted[-1], q_sorted[-1])
+            return float(ref_q + rate * (s - ref_s))
+        return float(np.interp(s, s_sorted, q_sorted))
+
+    measure_beat = getattr(reference, "measure_beat", None)
+
+    def measure_position(s: float) -> tuple[int | None, float | None]:
+        if n == 0:
+            return None, None
+        q = seconds_to_quarters(s)
+        if callable(measure_beat):
+            try:
+                m, b = measure_beat(q)
+                return int(m), round(float(b), 3)
+            except Exception:  # noqa: BLE001 - fall back to the notes' own positions
+                pass
+        # nearest note at or before s: same measure, beat advanced by the quarters elapsed
+        k = int(np.searchsorted(s_sorted, s + 1e-9, side="right")) - 1
+        k = max(k, 0)
+        i = order[k]
+        if measures[i] < 0:
+            return None, None
+        beat = beats[i] + (q - quarters[i]) if np.isfinite(beats[i]) else None
+        return int(measures[i]), (None if beat is None else round(float(beat), 3))
+
+    # measure starts, in score seconds
+    measure_starts: dict = {}
+    starts = getattr(reference, "measure_starts", None)
+    to_seconds = getattr(reference, "quarters_to_seconds", None)
+    if starts is not None and callable(to_seconds):
+        try:
+            items = starts.items() if isinstance(starts, dict) else enumerate(starts, start=_first_measure(measures))
+            for m, q in items:
+                measure_starts[int(m)] = float(to_seconds(float(q)))
+        except Exception:  # noqa: BLE001 - fall back below
+            measure_starts = {}
+    if not measure_starts:
+        for m in sorted(set(int(x) for x in measures if x >= 0)):
+            sel = measures == m
+            # the first note of the measure, moved back by its beat (beats counted from 1)
+            k = np.flatnonzero(sel)[np.argmin(onsets[sel])]
+            start = onsets[k]
+            if np.isfinite(beats[k]) and len(s_sorted) > 1:
+                q0 = quarters[k] - (beats[k] - 1.0)
+                start = float(np.interp(q0, q_sorted, s_sorted, left=s_sorted[0] - (quarters[k] - q0) * 0.5))
+            measure_starts[m] = float(start)
+    return _Part(onsets, offsets, pitches, quarters, measures, beats, measure_position, measure_starts)
+
+
+def _first_measure(measures: np.ndarray) -> int:
+    valid = measures[measures >= 0]
+    return int(valid.min()) if valid.size else 1
+
+
+def _score_to_take_function(alignment: Any) -> Callable[[np.ndarray], np.ndarray]:
+    if alignment is None:
+        return lambda s: np.asarray(s, dtype=float)
+    f = getattr(alignment, "score_to_take", None)
+    if not callable(f):
+        raise TypeError(f"alignment must have a score_to_take(t) method (takescribe.align.Alignment), got {type(alignment).__name__}")
+
+    def mapped(s: np.ndarray) -> np.ndarray:
+        s = np.asarray(s, dtype=float)
+        try:
+            out = np.asarray(f(s), dtype=float)
+            if out.shape == s.shape:
+                return out
+        except Exception:  # noqa: BLE001 - scalar-only implementations
+            pass
+        return np.array([float(f(float(x))) for x in s.ravel()]).reshape(s.shape)
+
+    return mapped
+
+
+# --------------------------------------------------------------------------- matching
+
+
+def _match_notes(ref_on, ref_off, ref_pitch, est_on, est_off, est_pitch, *, window: float, same_pitch: bool):
+    """Maximum matching of two small note sets (indices local to the given arrays)."""
+    if len(ref_on) == 0 or len(est_on) == 0:
+        return []
+    ref_intervals = np.column_stack([ref_on, np.maximum(ref_off, ref_on + 1e-3)])
+    est_intervals = np.column_stack([est_on, np.maximum(est_off, est_on + 1e-3)])
+    # shift both to non-negative times: predictions can fall just before 0
+    shift = min(0.0, float(ref_intervals.min()), float(est_intervals.min()))
+    ref_intervals = ref_intervals - shift
+    est_intervals = est_intervals - shift
+    pairs = _evaluate_match_notes()(
+        ref_intervals,
+        np.asarray(ref_pitch, dtype=float),
+        est_intervals,
+        np.asarray(est_pitch, dtype=float),
+        onset_tolerance=float(window),
+        pitch_tolerance=50.0 if same_pitch else None,
+        offset_ratio=None,
+    )
+    return [(int(i), int(j)) for i, j in pairs]
+
+
+def _evaluate_match_notes() -> Callable:
+    """:func:`takescribe.evaluate.match_notes` (MIDI pitches, tolerance in cents)."""
+    try:
+        from .evaluate import match_notes
+    except ImportError:  # evaluate.py not in this tree yet: same matching, straight from mir_eval
+        match_notes = _mir_eval_match_notes
+    return match_notes
+
+
+def _mir_eval_match_notes(ref_intervals, ref_pitches, est_intervals, est_pitches, *, onset_tolerance,
+                          pitch_tolerance, offset_ratio):
+    from mir_eval.transcription import match_notes
+
+    def hz(p):
+        return 440.0 * 2.0 ** ((np.asarray(p, dtype=float) - 69.0) / 12.0)
+
+    return match_notes(ref_intervals, hz(ref_pitches), est_intervals, hz(est_pitches),
+                       onset_tolerance=onset_tolerance,
+                       pitch_tolerance=1e9 if pitch_tolerance is None else pitch_tolerance,
+                       offset_ratio=offset_ratio)
+
+
+def _uncross(pairs, ref_time, est_time, key):
+    """Reorder pairs so that within each key group ref order follows played order.
+
+    The maximum matching is indifferent to which of two equal-pitch notes pairs with which;
+    pairing them in time order keeps every pair inside the window (exchange argument) and
+    avoids two opposite timing errors where there are none.
+    """
+    groups: dict = {}
+    for i, j in pairs:
+        groups.setdefault(key(i, j), []).append((i, j))
+    out = []
+    for members in groups.values():
+        refs = sorted((i for i, _ in members), key=lambda i: (ref_time[i], i))
+        ests = sorted((j for _, j in members), key=lambda j: (est_time[j], j))
+        out.extend(zip(refs, ests))
+    return out
+
+
+# --------------------------------------------------------------------------- tempo model
+
+
+def _theil_sen(x: np.ndarray, y: np.ndarray, default_slope: float) -> tuple[float, float]:
+    if len(x) == 0:
+        return default_slope, 0.0
+    if len(x) >= 2:
+        dx = x[None, :] - x[:, None]
+        dy = y[None, :] - y[:, None]
+        upper = np.triu(np.abs(dx) > 1e-6, k=1)
+        slopes = dy[upper] / dx[upper]
+        slope = float(np.median(slopes)) if slopes.size else default_slope
+    else:
+        slope = default_slope
+    # a local line steeper or flatter than four times the overall pace is not a tempo
+    slope = float(np.clip(slope, default_slope / 4.0, default_slope * 4.0))
+    intercept = float(np.median(y - slope * x))
+    return slope, intercept
+
+
+@dataclass
+class _TempoModel:
+    group_scores: np.ndarray  # score seconds of each onset group with a pairing
+    group_takes: np.ndarray  # median take onset of each group
+    segment_of_group: np.ndarray
+    segment_starts: list  # score seconds where each segment starts
+    default_slope: float
+    neighbours: int
+    hesitations: list  # (group index, pause seconds, pause start take time)
+
+    def segment_at(self, s: float) -> int:
+        return int(np.searchsorted(np.asarray(self.segment_starts), s + 1e-9, side="right")) - 1
+
+    def fit(self, s: float, *, exclude_group: int | None = None) -> tuple[float, float] | None:
+        """Local line (slope, intercept) of take time against score time around ``s``."""
+        seg = self.segment_at(s)
+        members = np.flatnonzero(self.segment_of_group == seg)
+        if exclude_group is not None:
+            members = members[members != exclude_group]
+        if members.size == 0:
+            return None
+        gs = self.group_scores[members]
+        before = members[gs < s - 1e-9][-self.neighbours:]
+        after = members[gs > s + 1e-9][: self.neighbours]
+        at = members[np.abs(gs - s) <= 1e-9]
+        chosen = np.concatenate([before, at, after])
+        return _theil_sen(self.group_scores[chosen], self.group_takes[chosen], self.default_slope)
+
+    def predict(self, s: float, *, exclude_group: int | None = None, fallback: float | None = None) -> float:
+        line = self.fit(s, exclude_group=exclude_group)
+        if line is None:
+            return float(s * self.default_slope) if fallback is None else float(fallback)
+        slope, intercept = line
+        return slope * s + intercept
+
+    def slope(self, s: float) -> float:
+        line = self.fit(s)
+        return self.default_slope if line is None else line[0]
+
+
+def _tempo_model(
+    score_on: np.ndarray,
+    played_on: np.ndarray,
+    pairs: Sequence[tuple[int, int]],
+    *,
+    breaks: Sequence[float],
+    neighbours: int,
+    hesitation_threshold: float,
+    default_slope: float,
+) -> _TempoModel:
+    by_group: dict = {}
+    for i, j in pairs:
+        by_group.setdefault(round(float(score_on[i]), 4), []).append(float(played_on[j]))
+    gs = np.array(sorted(by_group), dtype=float)
+    gt = np.array([float(np.median(by_group[s])) for s in gs], dtype=float)
+    breaks = sorted(set(float(b) for b in breaks))
+    starts = [-np.inf] + breaks
+
+    def segments_for(starts_: list) -> np.ndarray:
+        return np.searchsorted(np.asarray(starts_), gs + 1e-9, side="right") - 1
+
+    # overall pace: median ratio of consecutive gaps within segments
+    seg = segments_for(starts)
+    ratios = []
+    for k in range(1, len(gs)):
+        if seg[k] == seg[k - 1] and gs[k] - gs[k - 1] > 1e-6:
+            ratios.append((gt[k] - gt[k - 1]) / (gs[k] - gs[k - 1]))
+    ratios = [r for r in ratios if r > 0]
+    if ratios:
+        default_slope = float(np.median(ratios))
+
+    hesitations = []
+    for k in range(1, len(gs)):
+        seg = segments_for(starts)
+        if seg[k] != seg[k - 1]:
+            continue
+        left = np.flatnonzero((seg == seg[k]) & (np.arange(len(gs)) < k))[-neighbours:]
+        slope, intercept = _theil_sen(gs[left], gt[left], default_slope)
+        pred_k = slope * gs[k] + intercept
+        shift_k = gt[k] - pred_k
+        expected_gap = slope * (gs[k] - gs[k - 1])
+        if shift_k <= max(hesitation_threshold, 0.5 * expected_gap):
+            continue
+        if k + 1 >= len(gs) or seg[k + 1] != seg[k]:
+            continue  # nothing after it to show that the delay persists: judged as late
+        shift_next = gt[k + 1] - (slope * gs[k + 1] + intercept)
+        if shift_next < 0.5 * shift_k:
+            continue  # one late note, the music went on at the old place
+        pause_start = float(pred_k)
+        hesitations.append((k, float(shift_k), pause_start))
+        starts = sorted(starts + [float(gs[k]) - 1e-6])
+    seg = segments_for(starts)
+    return _TempoModel(gs, gt, seg, starts, default_slope, neighbours, hesitations)
+
+
+# --------------------------------------------------------------------------- restarts
+
+
+@dataclass
+class _Restart:
+    abandoned: list  # played indices
+    resumed_pairs: list  # (ref, played) of the later attempt to use as anchors
+    dropped_pairs: list  # (ref, played) of the earlier attempt to drop from the anchors
+    to_ref: int  # first reference note of the resumed attempt
+    from_ref: int  # last reference note reached in the abandoned attempt
+    from_time: float
+    to_time: float
+
+
+def _find_restarts(
+    part: _Part,
+    played_on: np.ndarray,
+    played_pitch: np.ndarray,
+    anchors: list,
+    expected0: np.ndarray,
+    *,
+    min_restart_notes: int,
+    vote_tolerance: float = 0.15,
+    min_shift: float = 0.5,
+) -> list[_Restart]:
+    matched_ref_of = {j: i for i, j in anchors}
+    partner_of_ref = {i: j for i, j in anchors}
+    order = np.argsort(played_on, kind="stable")
+    # runs of unmatched played notes (in take order), tolerating one matched note inside
+    runs, current, matched_streak = [], [], 0
+    for j in order:
+        if j in matched_ref_of:
+            matched_streak += 1
+            if matched_streak >= 2 and current:
+                runs.append(current)
+                current = []
+            continue
+        matched_streak = 0
+        current.append(int(j))
+    if current:
+        runs.append(current)
+
+    restarts: list[_Restart] = []
+    used: set = set()
+    for run in runs:
+        if len(run) < min_restart_notes:
+            continue
+        candidates = []  # (j, i, shift)
+        for j in run:
+            for i in np.flatnonzero(part.pitches == played_pitch[j]):
+                partner_time = played_on[partner_of_ref[i]] if i in partner_of_ref else expected0[i]
+                shift = float(played_on[j] - partner_time)
+                if abs(shift) >= min_shift:
+                    candidates.append((j, int(i), shift))
+        if not candidates:
+            continue
+        shifts = np.array([c[2] for c in candidates])
+        best_count, best_shift = 0, 0.0
+        for c in shifts:
+            voters = {candidates[k][0] for k in np.flatnonzero(np.abs(shifts - c) <= vote_tolerance)}
+            if len(voters) > best_count or (len(voters) == best_count and abs(c) < abs(best_shift)):
+                best_count, best_shift = len(voters), float(c)
+        if best_count < max(min_restart_notes, int(np.ceil(0.5 * len(run)))):
+            continue
+        close = np.abs(shifts - best_shift) <= vote_tolerance
+        best_shift = float(np.median(shifts[close]))
+        votes: dict = {}
+        for k in np.flatnonzero(np.abs(shifts - best_shift) <= vote_tolerance):
+            j, i, shift = candidates[k]
+            if i in used:
+                continue
+            if j not in votes or abs(shift - best_shift) < abs(votes[j][1] - best_shift):
+                votes[j] = (i, shift)
+        # one reference note per voter
+        seen_ref: dict = {}
+        for j, (i, shift) in votes.items():
+            if i not in seen_ref or abs(shift - best_shift) < abs(votes[seen_ref[i]][1] - best_shift):
+                seen_ref[i] = j
+        voter_pairs = [(i, j) for i, j in seen_ref.items()]
+        if len(voter_pairs) < min_restart_notes:
+            continue
+        refs = [i for i, _ in voter_pairs]
+        run_times = [played_on[j] for _, j in voter_pairs]
+        partner_times = [played_on[partner_of_ref[i]] if i in partner_of_ref else expected0[i] for i in refs]
+        if best_shift < 0:  # the run came first: it is the abandoned attempt
+            earlier_start, later_start = min(run_times), min(partner_times)
+            resumed, dropped = [], []
+        else:  # the run is the second attempt; the anchors there were the abandoned one
+            earlier_start, later_start = min(partner_times), min(run_times)
+            resumed = voter_pairs
+            dropped = [(i, partner_of_ref[i]) for i in refs if i in partner_of_ref]
+        abandoned = [int(j) for j in np.flatnonzero((played_on >= earlier_start - 1e-6) & (played_on < later_start - 1e-6))]
+        if not abandoned:
+            continue
+        to_ref = min(refs, key=lambda i: (part.onsets[i], part.pitches[i]))
+        from_ref = max(refs, key=lambda i: (part.onsets[i], -part.pitches[i]))
+        used.update(refs)
+        restarts.append(
+            _Restart(
+                abandoned=abandoned,
+                resumed_pairs=resumed,
+                dropped_pairs=dropped,
+                to_ref=int(to_ref),
+                from_ref=int(from_ref),
+                from_time=float(max(played_on[abandoned])),
+                to_time=float(later_start),
+            )
+        )
+    return restarts
+
+
+# --------------------------------------------------------------------------- main entry
+
+
+def compare_notes(
+    reference: Any,
+    alignment: Any,
+    played_notes: Sequence[Note],
+    *,
+    timing_tolerance: float = 0.100,
+    duration_tolerance: float = 0.5,
+    match_margin: float = 0.15,
+    anchor_window: float = 0.5,
+    hesitation_threshold: float = 0.3,
+    neighbours: int = 4,
+    min_restart_notes: int = 3,
+) -> Comparison:
+    """Compare the notes of a take with the reference part.
+
+    Parameters
+    ----------
+    reference : takescribe.score.Reference
+        The part; uses ``notes`` (pitch, onset, offset in seconds at the written tempo,
+        onset_quarters, measure, beat), ``measure_beat(q)``, ``measure_starts`` and
+        ``quarters_to_seconds`` where present.
+    alignment : takescribe.align.Alignment or None
+        Score time -> take time (``score_to_take``); ``None`` means the take follows the
+        written tempo from 0 s.
+    played_notes : sequence of Note
+        What was played (ground truth or a transcription), seconds in the take.
+    timing_tolerance : float
+        Seconds a note may be off the player's own local pulse before it is early/late.
+    duration_tolerance : float
+        Relative: a note held for less than ``1 - duration_tolerance`` or more than
+        ``1 + duration_tolerance`` times its written length at the local tempo is
+        held_short / held_long.
+    match_margin : float
+        Seconds added to ``timing_tolerance`` for the final matching window, so early and
+        late notes are still recognised as the note meant.
+    anchor_window : float
+        Seconds, first-pass matching window around the alignment's prediction.
+    hesitation_threshold : float
+        Seconds of unwritten pause (persisting on the next note) that make a hesitation.
+    neighbours : int
+        Onset groups on each side used for the local tempo line.
+    min_restart_notes : int
+        Notes of the abandoned attempt needed to recognise a restart.
+
+    Returns
+    -------
+    Comparison
+
+    Raises
+    ------
+    InputError
+        If an option is out of range or the reference notes are malformed.
+    TypeError
+        If ``played_notes`` is not a sequence of Note or the reference/alignment lack the
+        attributes used.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace as NS
+    >>> from takescribe.notes import Note
+    >>> ref = NS(notes=[NS(pitch=60 + k, onset=0.5 * k, offset=0.5 * k + 0.45, onset_quarters=k,
+    ...                   measure=1 + k // 4, beat=1.0 + k % 4) for k in range(8)])
+    >>> played = [Note(0.5 * k, 0.5 * k + 0.45, 60 + k) for k in range(8) if k != 3]
+    >>> result = compare_notes(ref, None, played)
+    >>> [(f.kind, f.expected_pitch) for f in result.findings]
+    [('missed', 63)]
+    """
+    validate_comparison_options(
+        timing_tolerance=timing_tolerance,
+        duration_tolerance=duration_tolerance,
+        match_margin=match_margin,
+        anchor_window=anchor_window,
+        hesitation_threshold=hesitation_threshold,
+        neighbours=neighbours,
+        min_restart_notes=min_restart_notes,
+    )
+    played = validate_notes(played_notes, name="played_notes")
+    part = _part_from_reference(reference)
+    to_take = _score_to_take_function(alignment)
+    n_ref, n_played = len(part.onsets), len(played)
+
+    played_on = np.array([p.onset for p in played], dtype=float)
+    played_off = np.array([p.offset for p in played], dtype=float)
+    played_pitch = np.array([p.pitch for p in played], dtype=int)
+
+    expected0 = to_take(part.onsets) if n_ref else np.zeros(0)
+    expected0_off = to_take(part.offsets) if n_ref else np.zeros(0)
+    default_slope = _overall_slope(part.onsets, expected0)
+
+    # 1. anchors: same pitch, wide window around the alignment's prediction
+    anchors = _match_notes(expected0, expected0_off, part.pitches, played_on, played_off, played_pitch,
+                           window=anchor_window, same_pitch=True)
+    anchors = _uncross(anchors, expected0, played_on, key=lambda i, j: part.pitches[i])
+
+    # 2. restarts
+    restarts = _find_restarts(part, played_on, played_pitch, anchors, expected0, min_restart_notes=min_restart_notes)
+    abandoned_owner: dict = {}
+    for k, r in enumerate(restarts):
+        for j in r.abandoned:
+            abandoned_owner.setdefault(j, k)
+    dropped = {p for r in restarts for p in r.dropped_pairs}
+    anchors = [(i, j) for i, j in anchors if (i, j) not in dropped and j not in abandoned_owner]
+    anchored_refs = {i for i, _ in anchors}
+    anchors += [(i, j) for r in restarts for i, j in r.resumed_pairs if i not in anchored_refs]
+    breaks = [float(part.onsets[r.to_ref]) for r in restarts]
+
+    # 3. local tempo and hesitations, from the anchors; re-anchoring around the local-tempo
+    # prediction lets the anchors follow a take that drifts away from a coarse alignment
+    pool = np.array([j for j in range(n_played) if j not in abandoned_owner], dtype=int)
+    predicted = expected0
+    for _ in range(3):
+        model = _tempo_model(part.onsets, played_on, anchors, breaks=breaks, neighbours=neighbours,
+                             hesitation_threshold=hesitation_threshold, default_slope=default_slope)
+        predicted = np.array([model.predict(s, fallback=e) for s, e in zip(part.onsets, predicted)]) if n_ref else np.zeros(0)
+        pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
+        again = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
+                             window=anchor_window, same_pitch=True)
+        again = _uncross([(i, int(pool[j])) for i, j in again], predicted, played_on, key=lambda i, j: part.pitches[i])
+        if sorted(again) == sorted(anchors) or len(again) < len(anchors):
+            break
+        anchors = again
+
+    # 4. final matching around the local-tempo prediction
+    pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
+    window = timing_tolerance + match_margin
+    same = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
+                        window=window, same_pitch=True)
+    same = [(i, int(pool[j])) for i, j in same]
+    same = _uncross(same, predicted, played_on, key=lambda i, j: part.pitches[i])
+    left_ref = np.array(sorted(set(range(n_ref)) - {i for i, _ in same}), dtype=int)
+    left_played = np.array(sorted(set(pool.tolist()) - {j for _, j in same}), dtype=int)
+    wrong = _match_notes(predicted[left_ref], pred_off[left_ref], part.pitches[left_ref], played_on[left_played],
+                         played_off[left_played], played_pitch[left_played], window=window, same_pitch=False)
+    wrong = [(int(left_ref[i]), int(left_played[j])) for i, j in wrong]
+    # within a chord, pair wrong notes by pitch order (lowest with lowest)
+    wrong = _uncross(wrong, part.pitches, played_pitch, key=lambda i, j: round(float(part.onsets[i]), 4))
+
+    # 5. refit the tempo with every pairing, keeping the restart cuts
+    model = _tempo_model(part.onsets, played_on, same + wrong, breaks=breaks, neighbours=neighbours,
+                         hesitation_threshold=hesitation_threshold, default_slope=default_slope)
+    group_index = {round(float(s), 4): k for k, s in enumerate(model.group_scores)}
+    predicted = np.array([model.predict(s, fallback=e) for s, e in zip(part.onsets, predicted)]) if n_ref else np.zeros(0)
+    slopes = np.array([model.slope(s) for s in part.onsets]) if n_ref else np.zeros(0)
+    pred_off = predicted + slopes * (part.offsets - part.onsets)
+
+    # 6. findings
+    raw: list[dict] = []
+
+    def add(kind: str, time: float, **kw) -> dict:
+        item = {"kind": kind, "time": float(time), **kw}
+        raw.append(item)
+        return item
+
+    def where(i: int) -> dict:
+        m = int(part.measures[i]) if part.measures[i] >= 0 else None
+        b = round(float(part.beats[i]), 3) if np.isfinite(part.beats[i]) else None
+        if m is None:
+            m, b = part.measure_position(float(part.onsets[i]))
+        return {"measure": m, "beat": b}
+
+    restart_items = []
+    for r in restarts:
+        fm = where(r.from_ref)
+        tm = where(r.to_ref)
+        replayed = float(part.onsets[r.from_ref] - part.onsets[r.to_ref])
+        item = add(
+            "restart", r.from_time, **fm, deviation=replayed, reference_index=r.to_ref,
+            from_time=r.from_time, to_time=r.to_time, from_measure=fm["measure"], from_beat=fm["beat"],
+            to_measure=tm["measure"], to_beat=tm["beat"],
+            text=(f"{_bar(fm)}: stopped and started again from {_bar(tm, lower=True)}. "
+                  f"The {len(r.abandoned)} notes of the attempt that was left off are listed with it."),
+        )
+        restart_items.append(item)
+
+    hesitation_of_group: dict = {}
+    for k, pause, start in model.hesitations:
+        refs_here = [i for i in range(n_ref) if abs(part.onsets[i] - model.group_scores[k]) <= 1e-4]
+        i0 = min(refs_here, key=lambda i: part.pitches[i]) if refs_here else None
+        pos = where(i0) if i0 is not None else {"measure": None, "beat": None}
+        item = add(
+            "hesitation", start, **pos, expected_pitch=None if i0 is None else int(part.pitches[i0]),
+            deviation=pause, reference_index=i0,
+            text=(f"{_bar(pos)}: a pause of {pause:.1f} s before "
+                  f"{'this note' if i0 is None else pitch_name(part.pitches[i0])} that the part does not have."),
+        )
+        hesitation_of_group[k] = item
+
+    # the group just before each hesitation: a note held into the pause belongs to the pause
+    before_hesitation = {k - 1 for k in hesitation_of_group}
+
+    note_status = ["missed"] * n_ref
+    played_status = ["extra"] * n_played
+    for i, j in same:
+        note_status[i] = "played"
+        played_status[j] = "matched"
+    for i, j in wrong:
+        note_status[i] = "wrong_pitch"
+        played_status[j] = "matched"
+
+    flagged_refs: set = set()
+    for i, j in same:
+        pos = where(i)
+        g = group_index.get(round(float(part.onsets[i]), 4))
+        expected = model.predict(float(part.onsets[i]), exclude_group=g, fallback=float(predicted[i]))
+        residual = float(played_on[j] - expected)
+        name = pitch_name(part.pitches[i])
+        common = dict(**pos, expected_pitch=int(part.pitches[i]), played_pitch=int(played_pitch[j]),
+                      reference_index=i, played_index=j)
+        if abs(residual) > timing_tolerance:
+            kind = "late" if residual > 0 else "early"
+            linked = hesitation_of_group.get(g) if kind == "late" else None
+            text = (f"{_bar(pos)}: {name} came {abs(residual):.2f} s "
+                    f"{'after' if kind == 'late' else 'ahead of'} the player's own pulse"
+                    + (" (just after a pause)." if linked is not None else "."))
+            add(kind, played_on[j], deviation=residual, linked=linked, text=text, **common)
+            flagged_refs.add(i)
+        expected_length = float(slopes[i] * (part.offsets[i] - part.onsets[i]))
+        played_length = float(played_off[j] - played_on[j])
+        difference = played_length - expected_length
+        if expected_length > 0 and abs(difference) > timing_tolerance:
+            ratio = played_length / expected_length
+            kind = None
+            if ratio < 1.0 - duration_tolerance:
+                kind = "held_short"
+            elif ratio > 1.0 + duration_tolerance and g not in before_hesitation:
+                kind = "held_long"
+            if kind is not None:
+                add(kind, played_on[j], deviation=difference,
+                    text=(f"{_bar(pos)}: {name} held {played_length:.2f} s; at this pace it lasts "
+                          f"about {expected_length:.2f} s."), **common)
+                flagged_refs.add(i)
+    for i, j in wrong:
+        pos = where(i)
+        step = int(played_pitch[j] - part.pitches[i])
+        add("wrong_pitch", played_on[j], **pos, expected_pitch=int(part.pitches[i]), played_pitch=int(played_pitch[j]),
+            deviation=float(step), reference_index=i, played_index=j,
+            text=(f"{_bar(pos)}: played {pitch_name(played_pitch[j])} where the part has "
+                  f"{pitch_name(part.pitches[i])} ({step:+d} semitone{'s' if abs(step) != 1 else ''})."))
+    for i in range(n_ref):
+        if note_status[i] == "missed":
+            pos = where(i)
+            add("missed", predicted[i], **pos, expected_pitch=int(part.pitches[i]), reference_index=i,
+                text=f"{_bar(pos)}: {pitch_name(part.pitches[i])} in the part was not heard.")
+
+    def take_position(t: float) -> dict:
+        s = _take_to_score(model, t, part)
+        m, b = part.measure_position(s)
+        return {"measure": m, "beat": b}
+
+    for j in range(n_played):
+        if played_status[j] != "extra":
+            continue
+        pos = take_position(float(played_on[j]))
+        owner = abandoned_owner.get(j)
+        linked = restart_items[owner] if owner is not None else None
+        text = (f"{_bar(pos)}: {pitch_name(played_pitch[j])} "
+                + ("from the attempt that was started again." if linked is not None else "that is not in the part."))
+        add("extra", played_on[j], **pos, played_pitch=int(played_pitch[j]), played_index=j, linked=linked, text=text)
+
+    findings = _number(raw)
+
+    # 7. summary
+    counts = {kind: 0 for kind in KINDS}
+    for f in findings:
+        counts[f.kind] += 1
+    take_end = float(max(played_off.max() if n_played else 0.0, predicted.max() if n_ref else 0.0))
+    per_bar = Counter(f.measure for f in findings if f.measure is not None)
+    correct = sum(1 for i in range(n_ref) if note_status[i] == "played" and i not in flagged_refs)
+    confidence = getattr(alignment, "confidence", None) if alignment is not None else None
+    if confidence is not None and not np.isscalar(confidence):
+        confidence = float(np.mean(np.asarray(confidence, dtype=float))) if np.size(confidence) else None
+    measure_times = {m: float(model.predict(s, fallback=float(to_take(np.array([s]))[0]))) for m, s in part.measure_starts.items()}
+    summary = {
+        "notes_in_part": n_ref,
+        "notes_played": n_played,
+        "notes_played_correctly": int(correct),
+        "counts": counts,
+        "findings_per_minute": round(len(findings) / (take_end / 60.0), 3) if take_end > 0 else 0.0,
+        "tempo_curve": _tempo_curve(part, model),
+        "bars_with_most_findings": [{"measure": int(m), "findings": int(c)}
+                                    for m, c in sorted(per_bar.items(), key=lambda mc: (-mc[1], mc[0]))[:5]],
+        "alignment_confidence": None if confidence is None else round(float(confidence), 4),
+        "take_duration": round(take_end, 4),
+    }
+    pairs = tuple(sorted(same + wrong))
+    return Comparison(
+        findings=tuple(findings),
+        summary=summary,
+        note_status=tuple(note_status),
+        played_status=tuple(played_status),
+        pairs=pairs,
+        expected_onsets=predicted,
+        expected_offsets=pred_off,
+        played_notes=tuple(played),
+        measure_times=measure_times,
+    )
+
+
+def _bar(pos: dict, *, lower: bool = False) -> str:
+    word = "bar" if lower else "Bar"
+    if pos.get("measure") is None:
+        return "here" if lower else "Here"
+    beat = pos.get("beat")
+    if beat is None:
+        return f"{word} {pos['measure']}"
+    return f"{word} {pos['measure']}, beat {beat:g}"
+
+
+def _overall_slope(score_on: np.ndarray, take_on: np.ndarray) -> float:
+    if len(score_on) >= 2 and np.ptp(score_on) > 0:
+        slope = float(np.ptp(take_on) / np.ptp(score_on)) if np.ptp(take_on) > 0 else 1.0
+        if np.isfinite(slope) and slope > 0:
+            return slope
+    return 1.0
+
+
+def _take_to_score(model: _TempoModel, t: float, part: _Part) -> float:
+    """Score seconds at take time ``t`` through the nearest group's local line."""
+    if len(model.group_takes) == 0:
+        return float(t / model.default_slope)
+    k = int(np.argmin(np.abs(model.group_takes - t)))
+    s = float(model.group_scores[k])
+    slope, intercept = model.fit(s) or (model.default_slope, float(model.group_takes[k] - model.default_slope * s))
+    return float((t - intercept) / slope) if slope > 0 else s
+
+
+def _tempo_curve(part: _Part, model: _TempoModel) -> list[dict]:
+    """Take seconds per quarter note, one sample per measure of the part."""
+    if len(part.onsets) < 2 or len(model.group_scores) == 0:
+        return []
+    order = np.argsort(part.onsets, kind="stable")
+    s_sorted, q_sorted = part.onsets[order], part.quarters[order]
+    curve = []
+    for m, s in sorted(part.measure_starts.items()):
+        # sample the middle of the bar's notes
+        sel = part.measures == m
+        s_mid = float(np.median(part.onsets[sel])) if np.any(sel) else float(s)
+        score_seconds_per_quarter = _local_rate(s_sorted, q_sorted, s_mid)
+        take_per_score = model.slope(s_mid)
+        seconds_per_beat = take_per_score * score_seconds_per_quarter
+        if not np.isfinite(seconds_per_beat) or seconds_per_beat <= 0:
+            continue
+        curve.append({
+            "measure": int(m),
+            "score_quarters": round(float(np.interp(s, s_sorted, q_sorted)), 4),
+            "take_time": round(float(model.predict(float(s))), 4),
+            "seconds_per_beat": round(float(seconds_per_beat), 4),
+            "beats_per_minute": round(60.0 / float(seconds_per_beat), 2),
+        })
+    return curve
+
+
+def _local_rate(s_sorted: np.ndarray, q_sorted: np.ndarray, s: float) -> float:
+    """Score seconds per quarter note around score time ``s``."""
+    k = int(np.searchsorted(s_sorted, s))
+    lo, hi = max(k - 4, 0), min(k + 4, len(s_sorted) - 1)
+    dq = q_sorted[hi] - q_sorted[lo]
+    ds = s_sorted[hi] - s_sorted[lo]
+    if dq <= 0 or ds <= 0:
+        dq, ds = q_sorted[-1] - q_sorted[0], s_sorted[-1] - s_sorted[0]
+    return float(ds / dq) if dq > 0 else 0.5
+
+
+_KIND_ORDER = {k: n for n, k in enumerate(("restart", "hesitation", "wrong_pitch", "missed", "extra", "early", "late", "held_short", "held_long"))}
+
+
+def _number(raw: list[dict]) -> list[Finding]:
+    ordered = sorted(raw, key=lambda d: (d["time"], _KIND_ORDER[d["kind"]], d.get("expected_pitch") or d.get("played_pitch") or 0))
+    ids = {id(d): n + 1 for n, d in enumerate(ordered)}
+    out = []
+    for d in ordered:
+        linked = d.pop("linked", None)
+        out.append(Finding(id=ids[id(d)], linked_to=None if linked is None else ids[id(linked)], **d))
+    return out

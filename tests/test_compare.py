@@ -1,0 +1,415 @@
+"""Tests of takescribe.compare on synthetic parts and takes of our own invention.
+
+The synthetic part is a made-up study (no real piece): 4/4, quarter = 100 per minute,
+melody with a few two-note chords. Takes are rendered from it with known deviations
+injected, so every expected finding is known exactly.
+"""
+
+from __future__ import annotations
+
+import json
+from collections import Counter
+from dataclasses import dataclass
+from types import SimpleNamespace
+
+import librosa
+import numpy as np
+import pytest
+
+from takescribe.compare import KINDS, Comparison, compare_notes, findings_json, pitch_name
+from takescribe.errors import InputError
+from takescribe.notes import Note
+
+SECONDS_PER_QUARTER = 0.6  # quarter = 100 per minute
+
+
+@dataclass(frozen=True)
+class FakeScoreNote:
+    pitch: int
+    onset: float
+    offset: float
+    onset_quarters: float
+    duration_quarters: float
+    measure: int
+    beat: float
+    staff: int
+    index: int
+
+
+class FakeReference:
+    """Reference-like part: notes at the written tempo, 4/4 measures."""
+
+    def __init__(self, events):
+        # events: (onset_quarters, duration_quarters, pitch)
+        notes = []
+        for k, (q, d, p) in enumerate(sorted(events)):
+            notes.append(FakeScoreNote(p, q * SECONDS_PER_QUARTER, (q + d) * SECONDS_PER_QUARTER, q, d,
+                                       int(q // 4) + 1, float(q % 4) + 1.0, 1, k))
+        self.notes = tuple(notes)
+        n_measures = int(np.ceil(max(q + d for q, d, _ in events) / 4))
+        self.measure_starts = [4.0 * m for m in range(n_measures)]
+        self.source = None
+
+    def quarters_to_seconds(self, q):
+        return q * SECONDS_PER_QUARTER
+
+    def measure_beat(self, q):
+        return int(q // 4) + 1, float(q % 4) + 1.0
+
+
+class FakeAlignment:
+    """Monotone score-time -> take-time path with linear interpolation."""
+
+    def __init__(self, score_times, take_times, confidence=0.9):
+        self.score_times = np.asarray(score_times, dtype=float)
+        self.take_times = np.asarray(take_times, dtype=float)
+        self.confidence = confidence
+        self.segments = ()
+
+    def score_to_take(self, t):
+        return np.interp(t, self.score_times, self.take_times)
+
+    def take_to_score(self, t):
+        return np.interp(t, self.take_times, self.score_times)
+
+
+def study(n_measures: int = 12, seed: int = 3) -> FakeReference:
+    """An invented study: stepwise melody in quarters and eighths, a dyad on each downbeat."""
+    rng = np.random.default_rng(seed)
+    events, pitch, q = [], 67, 0.0
+    while q < 4 * n_measures:
+        d = 1.0 if rng.random() < 0.6 else 0.5
+        if q % 4 == 0:
+            events.append((q, d, pitch - 7))  # dyad on the downbeat
+        events.append((q, d, pitch))
+        pitch = int(np.clip(pitch + rng.choice([-2, -1, 1, 2, 3, -3]), 62, 79))
+        q += d
+    return FakeReference(events)
+
+
+def render(reference, *, take_time=None, legato=0.9):
+    """Ideal take of the part through ``take_time(score_seconds)`` (default: as written)."""
+    take_time = take_time or (lambda s: s)
+    return [Note(take_time(n.onset), take_time(n.onset + legato * (n.offset - n.onset)), n.pitch) for n in reference.notes]
+
+
+def kinds(result: Comparison) -> Counter:
+    return Counter(f.kind for f in result.findings)
+
+
+
+# --------------------------------------------------------------------------- basics
+
+
+def test_pitch_name_agrees_with_librosa():
+    # librosa.note_to_midi parses scientific pitch names (C4 = 60): outside reference
+    for p in range(21, 109):
+        assert librosa.note_to_midi(pitch_name(p)) == p
+
+
+def test_perfect_take_has_no_findings():
+    ref = study()
+    result = compare_notes(ref, None, render(ref))
+    assert result.findings == ()
+    assert set(result.note_status) == {"played"}
+    assert set(result.played_status) == {"matched"}
+    assert result.summary["notes_played_correctly"] == len(ref.notes)
+    assert result.summary["counts"] == {k: 0 for k in KINDS}
+
+
+def test_perfect_take_matches_mir_eval_count():
+    # every note matched, as mir_eval's own matching (50 ms onsets, 50 cents) finds: outside reference
+    import mir_eval
+
+    ref = study()
+    played = render(ref)
+    ref_int = np.array([[n.onset, n.offset] for n in ref.notes])
+    est_int = np.array([[n.onset, n.offset] for n in played])
+    hz = lambda p: 440.0 * 2 ** ((np.asarray(p, float) - 69) / 12)  # ISO 16: A4 = 440 Hz  # noqa: E731
+    pairs = mir_eval.transcription.match_notes(ref_int, hz([n.pitch for n in ref.notes]), est_int,
+                                               hz([n.pitch for n in played]), offset_ratio=None)
+    result = compare_notes(ref, None, played)
+    assert len(result.pairs) == len(pairs) == len(ref.notes)
+
+
+# --------------------------------------------------------------------------- tempo
+
+
+def test_gradual_tempo_drift_is_not_lateness():
+    ref = study(n_measures=16)
+    end = ref.notes[-1].offset
+    # take slows down smoothly from the written tempo to 30 % slower at the end
+    take_time = lambda s: s + 0.3 * s * s / (2 * end)  # noqa: E731
+    played = render(ref, take_time=take_time)
+    # the alignment is a coarse path (start, middle, end, 50 ms off): between its points the
+    # notes are up to ~0.4 s away from it, which the local tempo line must absorb
+    knots = np.linspace(0, end, 3)
+    alignment = FakeAlignment(knots, [take_time(s) + 0.05 for s in knots])
+    assert max(abs(take_time(n.onset) - alignment.score_to_take(n.onset)) for n in ref.notes) > 0.3
+    result = compare_notes(ref, alignment, played)
+    assert kinds(result)["late"] == 0 and kinds(result)["early"] == 0
+    assert result.findings == ()
+    curve = result.summary["tempo_curve"]
+    assert len(curve) == 16
+    # the curve follows the slowing down: last bar slower than the first
+    assert curve[-1]["seconds_per_beat"] > curve[0]["seconds_per_beat"] * 1.15
+    # take-time slope at score time s is 1 + 0.3 s / end: from 100 per minute down to ~100/1.3
+    assert curve[0]["beats_per_minute"] == pytest.approx(100, rel=0.05)
+    assert curve[-1]["beats_per_minute"] == pytest.approx(100 / 1.3, rel=0.05)
+
+
+def test_faster_take_with_exact_alignment():
+    ref = study()
+    played = render(ref, take_time=lambda s: 0.8 * s + 1.0)
+    end = ref.notes[-1].offset
+    result = compare_notes(ref, FakeAlignment([0, end], [1.0, 0.8 * end + 1.0]), played)
+    assert result.findings == ()
+    assert result.summary["tempo_curve"][3]["beats_per_minute"] == pytest.approx(125, rel=0.02)
+
+
+# --------------------------------------------------------------------------- each kind
+
+
+def _single_line(ref):
+    """Indices of notes that are alone at their onset (not in a dyad)."""
+    onsets = Counter(round(n.onset, 4) for n in ref.notes)
+    return [k for k, n in enumerate(ref.notes) if onsets[round(n.onset, 4)] == 1]
+
+
+def test_wrong_missed_extra():
+    ref = study()
+    played = render(ref)
+    singles = _single_line(ref)
+    wrong_k, missed_k = singles[5], singles[12]
+    played[wrong_k] = Note(played[wrong_k].onset, played[wrong_k].offset, ref.notes[wrong_k].pitch + 2)
+    missed_note = played[missed_k]
+    del played[missed_k]
+    extra = Note(9.15, 9.4, 90)
+    played.append(extra)
+    result = compare_notes(ref, None, played)
+    assert kinds(result) == Counter({"wrong_pitch": 1, "missed": 1, "extra": 1})
+    by_kind = {f.kind: f for f in result.findings}
+    w = by_kind["wrong_pitch"]
+    assert (w.reference_index, w.expected_pitch, w.played_pitch, w.deviation) == (
+        wrong_k, ref.notes[wrong_k].pitch, ref.notes[wrong_k].pitch + 2, 2.0)
+    m = by_kind["missed"]
+    assert m.reference_index == missed_k and m.played_pitch is None
+    assert m.time == pytest.approx(missed_note.onset, abs=0.02)
+    assert (m.measure, m.beat) == (ref.notes[missed_k].measure, ref.notes[missed_k].beat)
+    e = by_kind["extra"]
+    assert e.played_pitch == 90 and e.expected_pitch is None and e.time == pytest.approx(9.15)
+    assert e.measure == int((9.15 / SECONDS_PER_QUARTER) // 4) + 1
+    assert result.note_status[wrong_k] == "wrong_pitch" and result.note_status[missed_k] == "missed"
+    assert result.played_status[-1] == "extra"
+    times = [f.time for f in result.findings]
+    assert times == sorted(times) and [f.id for f in result.findings] == [1, 2, 3]
+
+
+@pytest.mark.parametrize("shift, kind", [(-0.18, "early"), (0.2, "late")])
+def test_early_and_late(shift, kind):
+    ref = study()
+    played = render(ref)
+    k = _single_line(ref)[9]
+    n = played[k]
+    played[k] = Note(n.onset + shift, n.offset + shift, n.pitch)
+    result = compare_notes(ref, None, played)
+    assert [f.kind for f in result.findings] == [kind]
+    f = result.findings[0]
+    assert f.deviation == pytest.approx(shift, abs=0.01)
+    assert f.reference_index == k and f.time == pytest.approx(n.onset + shift)
+
+
+def test_within_tolerance_is_quiet():
+    ref = study()
+    played = render(ref)
+    rng = np.random.default_rng(0)
+    # human-like jitter of +-40 ms, well inside the 100 ms tolerance
+    jitter = rng.uniform(-0.04, 0.04, len(played))
+    played = [Note(n.onset + 0.1 + j, n.offset + 0.1 + j, n.pitch) for n, j in zip(played, jitter)]
+    end = ref.notes[-1].offset
+    assert compare_notes(ref, FakeAlignment([0, end], [0.1, end + 0.1]), played).findings == ()
+
+
+@pytest.mark.parametrize("factor, kind", [(0.25, "held_short"), (2.2, "held_long")])
+def test_held_short_and_long(factor, kind):
+    ref = study()
+    played = render(ref, legato=1.0)
+    # a quarter note alone at its onset, followed by a note (so a long hold is possible)
+    k = next(k for k in _single_line(ref) if ref.notes[k].duration_quarters == 1.0 and k > 10)
+    n = played[k]
+    played[k] = Note(n.onset, n.onset + factor * (n.offset - n.onset), n.pitch)
+    result = compare_notes(ref, None, played)
+    assert [f.kind for f in result.findings] == [kind]
+    assert result.findings[0].deviation == pytest.approx((factor - 1.0) * (n.offset - n.onset), abs=0.01)
+
+
+# --------------------------------------------------------------------------- hesitation and restart
+
+
+def test_hesitation_is_one_finding():
+    ref = study()
+    k = _single_line(ref)[15]
+    pause_at = ref.notes[k].onset
+    take_time = lambda s: s if s < pause_at - 1e-9 else s + 1.2  # noqa: E731
+    played = render(ref, take_time=take_time)
+    # the alignment knows about the pause (DTW holds the score still during it)
+    end = ref.notes[-1].offset
+    alignment = FakeAlignment([0, pause_at, pause_at, end], [0, pause_at, pause_at + 1.2, end + 1.2])
+    result = compare_notes(ref, alignment, played)
+    assert [f.kind for f in result.findings] == ["hesitation"]
+    h = result.findings[0]
+    assert h.deviation == pytest.approx(1.2, abs=0.05)
+    assert h.reference_index == k and h.expected_pitch == ref.notes[k].pitch
+    assert (h.measure, h.beat) == (ref.notes[k].measure, ref.notes[k].beat)
+    assert h.time == pytest.approx(pause_at, abs=0.05)
+
+
+def test_hesitation_without_alignment_help_and_late_note_after_it():
+    ref = study()
+    k = _single_line(ref)[15]
+    pause_at = ref.notes[k].onset
+    played = render(ref, take_time=lambda s: s if s < pause_at - 1e-9 else s + 0.8)
+    # the delayed note itself also comes late against the tempo after the pause
+    n = played[k]
+    played[k] = Note(n.onset + 0.25, n.offset + 0.25, n.pitch)
+    end = ref.notes[-1].offset
+    alignment = FakeAlignment([0, pause_at, pause_at, end], [0, pause_at, pause_at + 0.8, end + 0.8])
+    result = compare_notes(ref, alignment, played)
+    assert kinds(result) == Counter({"hesitation": 1, "late": 1})
+    h = next(f for f in result.findings if f.kind == "hesitation")
+    late = next(f for f in result.findings if f.kind == "late")
+    assert late.linked_to == h.id and late.reference_index == k
+    assert late.deviation == pytest.approx(0.25, abs=0.03)
+
+
+def _restart_take(ref, stop_k, back_k, gap=0.7):
+    """Play notes [0, stop_k], pause ``gap`` s, go back to note ``back_k`` and play on to the end."""
+    played = render(ref)
+    first = [n for n in played if n.onset <= ref.notes[stop_k].onset + 1e-9]
+    shift = ref.notes[stop_k].offset + gap - ref.notes[back_k].onset
+    second = [Note(n.onset + shift, n.offset + shift, n.pitch) for n in played if n.onset >= ref.notes[back_k].onset - 1e-9]
+    return first + second, shift
+
+
+@pytest.mark.parametrize("alignment_follows", ["second", "first"])
+def test_restart_is_one_finding_with_linked_extras(alignment_follows):
+    ref = study()
+    back_k = next(k for k, n in enumerate(ref.notes) if n.measure == 5 and n.beat == 1.0)
+    stop_k = next(k for k, n in enumerate(ref.notes) if n.measure == 6 and n.beat >= 3.0)
+    played, shift = _restart_take(ref, stop_k, back_k)
+    s_back, s_stop, end = ref.notes[back_k].onset, ref.notes[stop_k].onset, ref.notes[-1].offset
+    if alignment_follows == "second":
+        alignment = FakeAlignment([0, s_back, s_back, end], [0, s_back, s_back + shift, end + shift])
+    else:
+        alignment = FakeAlignment([0, s_stop, s_stop, end], [0, s_stop, s_stop + shift, end + shift])
+    result = compare_notes(ref, alignment, played)
+    c = kinds(result)
+    n_abandoned = sum(1 for n in ref.notes if s_back - 1e-9 <= n.onset <= s_stop + 1e-9)
+    assert c == Counter({"restart": 1, "extra": n_abandoned}), c
+    r = next(f for f in result.findings if f.kind == "restart")
+    extras = [f for f in result.findings if f.kind == "extra"]
+    assert all(f.linked_to == r.id for f in extras)
+    assert (r.from_measure, r.to_measure, r.to_beat) == (6, 5, 1.0)
+    assert r.from_time == pytest.approx(s_stop, abs=0.01)
+    assert r.to_time == pytest.approx(s_back + shift, abs=0.01)
+    assert set(result.note_status) == {"played"}
+
+
+# --------------------------------------------------------------------------- many deviations at once
+
+
+def _finding_f_measure(found, injected, tolerance=0.25):
+    """Greedy one-to-one pairing by kind, pitch and time (within ``tolerance`` seconds)."""
+    used, hits = set(), 0
+    for d in injected:
+        for k, f in enumerate(found):
+            if k in used or f.kind != d["kind"] or abs(f.time - d["time"]) > tolerance:
+                continue
+            if d.get("pitch") is not None and d["pitch"] not in (f.expected_pitch, f.played_pitch):
+                continue
+            used.add(k)
+            hits += 1
+            break
+    precision = hits / len(found) if found else 1.0
+    recall = hits / len(injected) if injected else 1.0
+    return 0.0 if hits == 0 else 2 * precision * recall / (precision + recall)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_random_deviations_are_found(seed):
+    rng = np.random.default_rng(seed)
+    ref = study(n_measures=24, seed=seed)
+    played = render(ref)
+    singles = _single_line(ref)
+    chosen = rng.choice(singles[2:-2], size=12, replace=False)
+    chosen = sorted(chosen)
+    # keep injected notes apart so each stands alone (two neighbours changed at once are
+    # ambiguous even for a listener)
+    chosen = [k for a, k in zip([-9] + chosen, chosen) if k - a >= 3]
+    injected, drop = [], set()
+    for k in chosen:
+        n, kind = played[k], rng.choice(["wrong_pitch", "missed", "extra", "early", "late", "held_short"])
+        if kind == "wrong_pitch":
+            played[k] = Note(n.onset, n.offset, n.pitch + int(rng.choice([-2, -1, 1, 2])))
+        elif kind == "missed":
+            drop.add(k)
+        elif kind == "extra":
+            played.append(Note(n.onset + 0.5 * (n.offset - n.onset), n.offset, 84))
+            injected.append({"kind": "extra", "time": n.onset + 0.5 * (n.offset - n.onset), "pitch": 84})
+            continue
+        elif kind in ("early", "late"):
+            d = float(rng.uniform(0.15, 0.22)) * (-1 if kind == "early" else 1)
+            played[k] = Note(n.onset + d, n.offset + d, n.pitch)
+            injected.append({"kind": kind, "time": n.onset + d, "pitch": n.pitch})
+            continue
+        elif kind == "held_short":
+            played[k] = Note(n.onset, n.onset + 0.3 * (n.offset - n.onset), n.pitch)
+        injected.append({"kind": kind, "time": n.onset, "pitch": ref.notes[k].pitch})
+    played = [n for k, n in enumerate(played) if k not in drop]
+    result = compare_notes(ref, None, played)
+    assert _finding_f_measure(list(result.findings), injected) >= 0.9, (
+        [(f.kind, round(f.time, 2)) for f in result.findings], injected)
+
+
+# --------------------------------------------------------------------------- output and errors
+
+
+def test_json_schema_fields():
+    ref = study()
+    played = render(ref)[:-3] + [Note(2.0, 2.2, 88)]
+    result = compare_notes(ref, FakeAlignment([0, 100], [0, 100], confidence=0.8), played)
+    doc = json.loads(json.dumps(findings_json(result)))
+    assert doc == result.to_json() and doc["schema"] == "takescribe-findings/1"
+    summary = doc["summary"]
+    for key in ("notes_in_part", "notes_played", "notes_played_correctly", "counts", "tempo_curve",
+                "bars_with_most_findings", "alignment_confidence", "findings_per_minute", "take_duration"):
+        assert key in summary
+    assert set(summary["counts"]) == set(KINDS)
+    assert summary["alignment_confidence"] == 0.8
+    assert summary["bars_with_most_findings"][0]["measure"] == ref.notes[-1].measure
+    for f in doc["findings"]:
+        for key in ("id", "kind", "measure", "beat", "time", "expected_pitch", "played_pitch", "deviation",
+                    "reference_index", "played_index", "linked_to", "text"):
+            assert key in f
+        assert f["text"]
+    assert len(doc["note_status"]) == len(ref.notes) and len(doc["played_status"]) == len(played)
+
+
+def test_empty_take_reports_every_note_missed():
+    ref = study(n_measures=2)
+    result = compare_notes(ref, None, [])
+    assert kinds(result) == Counter({"missed": len(ref.notes)})
+
+
+def test_bad_options_and_inputs():
+    ref = study(n_measures=2)
+    with pytest.raises(InputError, match="timing_tolerance"):
+        compare_notes(ref, None, [], timing_tolerance=-0.1)
+    with pytest.raises(InputError, match="neighbours"):
+        compare_notes(ref, None, [], neighbours=0)
+    with pytest.raises(TypeError, match=r"played_notes\[0\] must be a Note"):
+        compare_notes(ref, None, [(0.0, 1.0, 60)])
+    with pytest.raises(TypeError, match="score_to_take"):
+        compare_notes(ref, object(), [])
+    with pytest.raises(TypeError, match="notes"):
+        compare_notes(object(), None, [])
