@@ -586,8 +586,8 @@ def _read_resampled(
     except (sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
         detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
         raise AudioError(
-            f"{path}: damaged or truncated {info.format} file (reading stopped after "
-            f"{n_read / native_sr:.2f} s: {detail}); copy or export the take again"
+            f"{path}: damaged or truncated {info.format} file (decoding failed: {detail}); "
+            "copy or export the take again"
         ) from exc
 
     # match librosa.resample's length convention: ceil(n * sr / native_sr)
