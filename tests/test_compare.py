@@ -47,7 +47,7 @@ class FakeReference:
                                        int(q // 4) + 1, float(q % 4) + 1.0, 1, k))
         self.notes = tuple(notes)
         n_measures = int(np.ceil(max(q + d for q, d, _ in events) / 4))
-        self.measure_starts = [4.0 * m for m in range(n_measures)]
+        self.measure_starts = [4.0 * m for m in range(n_measures + 1)]  # bar starts plus the end, as score.py
         self.source = None
 
     def quarters_to_seconds(self, q):

@@ -65,6 +65,7 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
       },
       "findings": [
         {"id": int, "kind": str, "measure": int | null, "beat": float | null,
+         "measure_label": str | null,   # bar number as printed (repeats share a label)
          "time": float,                  # seconds in the take (missed: where it should sound)
          "expected_pitch": int | null, "played_pitch": int | null,
          "deviation": float | null,      # seconds (timing, duration, pause) or semitones
@@ -96,6 +97,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from .errors import InputError
+from .evaluate import match_notes
 from .notes import Note, validate_notes
 
 __all__ = [
@@ -160,6 +162,7 @@ class Finding:
     time: float
     measure: int | None = None
     beat: float | None = None
+    measure_label: str | None = None
     expected_pitch: int | None = None
     played_pitch: int | None = None
     deviation: float | None = None
@@ -185,6 +188,7 @@ class Finding:
             "kind": self.kind,
             "measure": self.measure,
             "beat": self.beat,
+            "measure_label": self.measure_label,
             "time": _round(self.time),
             "expected_pitch": self.expected_pitch,
             "played_pitch": self.played_pitch,
@@ -307,6 +311,15 @@ class _Part:
     beats: np.ndarray  # float, nan when unknown
     measure_position: Callable[[float], tuple[int | None, float | None]]
     measure_starts: dict  # measure -> score seconds
+    measure_end: float  # score seconds where the last bar ends
+    measure_labels: tuple  # printed bar number of each bar (performance order), may be empty
+
+    def label(self, measure: int | None) -> str | None:
+        if measure is None:
+            return None
+        if 1 <= measure <= len(self.measure_labels) and self.measure_labels[measure - 1]:
+            return self.measure_labels[measure - 1]
+        return str(measure)
 
 
 def _part_from_reference(reference: Any) -> _Part:
@@ -342,11 +355,19 @@ def _part_from_reference(reference: Any) -> _Part:
         return float(np.interp(s, s_sorted, q_sorted))
 
     measure_beat = getattr(reference, "measure_beat", None)
+    own_seconds_to_quarters = getattr(reference, "seconds_to_quarters", None)
 
     def measure_position(s: float) -> tuple[int | None, float | None]:
         if n == 0:
             return None, None
-        q = seconds_to_quarters(s)
+        q = None
+        if callable(own_seconds_to_quarters):
+            try:
+                q = float(own_seconds_to_quarters(float(s)))
+            except Exception:  # noqa: BLE001 - fall back to the notes' own positions
+                q = None
+        if q is None:
+            q = seconds_to_quarters(s)
         if callable(measure_beat):
             try:
                 m, b = measure_beat(q)
@@ -366,11 +387,14 @@ def _part_from_reference(reference: Any) -> _Part:
     measure_starts: dict = {}
     starts = getattr(reference, "measure_starts", None)
     to_seconds = getattr(reference, "quarters_to_seconds", None)
-    if starts is not None and callable(to_seconds):
+    measure_end = None
+    if starts is not None and callable(to_seconds) and len(starts) >= 2:
         try:
-            items = starts.items() if isinstance(starts, dict) else enumerate(starts, start=_first_measure(measures))
-            for m, q in items:
-                measure_starts[int(m)] = float(to_seconds(float(q)))
+            # takescribe.score: quarter position of each bar (1-based, performance order), plus the end
+            starts = [float(q) for q in starts]
+            for m, q in enumerate(starts[:-1], start=1):
+                measure_starts[m] = float(to_seconds(q))
+            measure_end = float(to_seconds(starts[-1]))
         except Exception:  # noqa: BLE001 - fall back below
             measure_starts = {}
     if not measure_starts:
@@ -383,12 +407,11 @@ def _part_from_reference(reference: Any) -> _Part:
                 q0 = quarters[k] - (beats[k] - 1.0)
                 start = float(np.interp(q0, q_sorted, s_sorted, left=s_sorted[0] - (quarters[k] - q0) * 0.5))
             measure_starts[m] = float(start)
-    return _Part(onsets, offsets, pitches, quarters, measures, beats, measure_position, measure_starts)
-
-
-def _first_measure(measures: np.ndarray) -> int:
-    valid = measures[measures >= 0]
-    return int(valid.min()) if valid.size else 1
+    if measure_end is None:
+        measure_end = float(offsets.max()) if n else 0.0
+    labels = tuple(str(x) for x in getattr(reference, "measure_labels", ()) or ())
+    return _Part(onsets, offsets, pitches, quarters, measures, beats, measure_position, measure_starts,
+                 measure_end, labels)
 
 
 def _score_to_take_function(alignment: Any) -> Callable[[np.ndarray], np.ndarray]:
@@ -424,7 +447,7 @@ def _match_notes(ref_on, ref_off, ref_pitch, est_on, est_off, est_pitch, *, wind
     shift = min(0.0, float(ref_intervals.min()), float(est_intervals.min()))
     ref_intervals = ref_intervals - shift
     est_intervals = est_intervals - shift
-    pairs = _evaluate_match_notes()(
+    pairs = match_notes(
         ref_intervals,
         np.asarray(ref_pitch, dtype=float),
         est_intervals,
@@ -434,28 +457,6 @@ def _match_notes(ref_on, ref_off, ref_pitch, est_on, est_off, est_pitch, *, wind
         offset_ratio=None,
     )
     return [(int(i), int(j)) for i, j in pairs]
-
-
-def _evaluate_match_notes() -> Callable:
-    """:func:`takescribe.evaluate.match_notes` (MIDI pitches, tolerance in cents)."""
-    try:
-        from .evaluate import match_notes
-    except ImportError:  # evaluate.py not in this tree yet: same matching, straight from mir_eval
-        match_notes = _mir_eval_match_notes
-    return match_notes
-
-
-def _mir_eval_match_notes(ref_intervals, ref_pitches, est_intervals, est_pitches, *, onset_tolerance,
-                          pitch_tolerance, offset_ratio):
-    from mir_eval.transcription import match_notes
-
-    def hz(p):
-        return 440.0 * 2.0 ** ((np.asarray(p, dtype=float) - 69.0) / 12.0)
-
-    return match_notes(ref_intervals, hz(ref_pitches), est_intervals, hz(est_pitches),
-                       onset_tolerance=onset_tolerance,
-                       pitch_tolerance=1e9 if pitch_tolerance is None else pitch_tolerance,
-                       offset_ratio=offset_ratio)
 
 
 def _uncross(pairs, ref_time, est_time, key):
@@ -863,7 +864,7 @@ def compare_notes(
         b = round(float(part.beats[i]), 3) if np.isfinite(part.beats[i]) else None
         if m is None:
             m, b = part.measure_position(float(part.onsets[i]))
-        return {"measure": m, "beat": b}
+        return {"measure": m, "beat": b, "measure_label": part.label(m)}
 
     restart_items = []
     for r in restarts:
@@ -883,7 +884,7 @@ def compare_notes(
     for k, pause, start in model.hesitations:
         refs_here = [i for i in range(n_ref) if abs(part.onsets[i] - model.group_scores[k]) <= 1e-4]
         i0 = min(refs_here, key=lambda i: part.pitches[i]) if refs_here else None
-        pos = where(i0) if i0 is not None else {"measure": None, "beat": None}
+        pos = where(i0) if i0 is not None else {"measure": None, "beat": None, "measure_label": None}
         item = add(
             "hesitation", start, **pos, expected_pitch=None if i0 is None else int(part.pitches[i0]),
             deviation=pause, reference_index=i0,
@@ -952,7 +953,7 @@ def compare_notes(
     def take_position(t: float) -> dict:
         s = _take_to_score(model, t, part)
         m, b = part.measure_position(s)
-        return {"measure": m, "beat": b}
+        return {"measure": m, "beat": b, "measure_label": part.label(m)}
 
     for j in range(n_played):
         if played_status[j] != "extra":
@@ -1007,10 +1008,11 @@ def _bar(pos: dict, *, lower: bool = False) -> str:
     word = "bar" if lower else "Bar"
     if pos.get("measure") is None:
         return "here" if lower else "Here"
+    label = pos.get("measure_label") or pos["measure"]
     beat = pos.get("beat")
     if beat is None:
-        return f"{word} {pos['measure']}"
-    return f"{word} {pos['measure']}, beat {beat:g}"
+        return f"{word} {label}"
+    return f"{word} {label}, beat {beat:g}"
 
 
 def _overall_slope(score_on: np.ndarray, take_on: np.ndarray) -> float:

@@ -1,0 +1,203 @@
+"""Tests of takescribe.report: the files of a practice report and their formats.
+
+Outside references: the MusicXML 4.0 XSD (W3C Music Notation Community Group, via the
+``musicxml_xsd_dir`` fixture), music21's MusicXML reader, Python's html.parser and json,
+libsndfile (soundfile) for the embedded audio.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import json
+import re
+import sys
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile as sf
+from lxml import etree
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from test_compare import FakeAlignment, _restart_take, _single_line, render, study  # noqa: E402
+
+from takescribe.compare import KINDS, compare_notes  # noqa: E402
+from takescribe.errors import OutputError  # noqa: E402
+from takescribe.notes import Note  # noqa: E402
+from takescribe.report import KIND_STYLES, annotate_musicxml, write_report  # noqa: E402
+
+
+def xsd_schema(xsd_dir: Path) -> etree.XMLSchema:
+    """MusicXML 4.0 schema with its two network imports pointed at the local copies (SOURCE.md)."""
+    text = (xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
+    text = text.replace("http://www.musicxml.org/xsd/xml.xsd", (xsd_dir / "xml.xsd").as_uri())
+    text = text.replace("http://www.musicxml.org/xsd/xlink.xsd", (xsd_dir / "xlink.xsd").as_uri())
+    return etree.XMLSchema(etree.fromstring(text.encode("utf-8"), base_url=(xsd_dir / "musicxml.xsd").as_uri()))
+
+
+def _comparison_with_everything():
+    """A take with a wrong, a missed, an extra, a late, a held-short note, a hesitation and a restart."""
+    ref = study(n_measures=12)
+    back_k = next(k for k, n in enumerate(ref.notes) if n.measure == 8)
+    stop_k = next(k for k, n in enumerate(ref.notes) if n.measure == 9 and n.beat >= 3.0)
+    played, shift = _restart_take(ref, stop_k, back_k)
+    singles = _single_line(ref)
+    k_wrong, k_missed, k_late, k_short = singles[3], singles[7], singles[11], singles[14]
+    edited = []
+    for n in played:
+        if abs(n.onset - ref.notes[k_wrong].onset) < 1e-9 and n.pitch == ref.notes[k_wrong].pitch:
+            n = Note(n.onset, n.offset, n.pitch + 1)
+        elif abs(n.onset - ref.notes[k_missed].onset) < 1e-9 and n.pitch == ref.notes[k_missed].pitch:
+            continue
+        elif abs(n.onset - ref.notes[k_late].onset) < 1e-9 and n.pitch == ref.notes[k_late].pitch:
+            n = Note(n.onset + 0.2, n.offset + 0.2, n.pitch)
+        elif abs(n.onset - ref.notes[k_short].onset) < 1e-9 and n.pitch == ref.notes[k_short].pitch:
+            n = Note(n.onset, n.onset + 0.25 * (n.offset - n.onset), n.pitch)
+        edited.append(n)
+    pause_at = ref.notes[singles[20]].onset
+    edited = [Note(n.onset + 1.0, n.offset + 1.0, n.pitch) if n.onset >= pause_at - 1e-9 else n for n in edited]
+    edited.append(Note(3.3, 3.5, 88))
+    end = ref.notes[-1].offset
+    s_back = ref.notes[back_k].onset
+    path_s = [0, pause_at, pause_at, s_back, s_back, end]
+    path_t = [0, pause_at, pause_at + 1.0, s_back + 1.0, s_back + 1.0 + shift, end + 1.0 + shift]
+    result = compare_notes(ref, FakeAlignment(path_s, path_t), edited)
+    return ref, result
+
+
+@pytest.fixture(scope="module")
+def everything():
+    return _comparison_with_everything()
+
+
+def test_the_synthetic_take_has_every_kind(everything):
+    _, result = everything
+    counts = result.summary["counts"]
+    for kind in ("wrong_pitch", "missed", "extra", "late", "held_short", "hesitation", "restart"):
+        assert counts[kind] >= 1, (kind, counts)
+
+
+def test_files_written_and_refused_without_force(tmp_path, everything):
+    ref, result = everything
+    folder = tmp_path / "out" / "report"
+    midi = b"MThd\x00\x00\x00\x06\x00\x00\x00\x01\x01\xe0MTrk\x00\x00\x00\x04\x00\xff\x2f\x00"  # SMF 1.0: empty type-0 file
+    written = write_report(folder, result, ref, draft_midi_bytes=midi)
+    assert set(written) == {"report.html", "findings.json", "annotated.musicxml", "take.mid"}
+    for path in written.values():
+        assert path.is_file() and path.stat().st_size > 0
+    assert (folder / "take.mid").read_bytes() == midi
+    with pytest.raises(OutputError, match="already exist"):
+        write_report(folder, result, ref)
+    write_report(folder, result, ref, force=True)
+    assert not any(p.name.endswith(".partial") for p in folder.iterdir())
+
+
+def test_findings_json_schema(tmp_path, everything):
+    ref, result = everything
+    write_report(tmp_path, result, ref)
+    doc = json.loads((tmp_path / "findings.json").read_text(encoding="utf-8"))
+    assert doc["schema"] == "takescribe-findings/1"
+    assert set(doc["summary"]["counts"]) == set(KINDS)
+    for f in doc["findings"]:
+        for key in ("id", "kind", "measure", "beat", "time", "expected_pitch", "played_pitch", "deviation",
+                    "reference_index", "played_index", "linked_to", "text"):
+            assert key in f
+    restart = next(f for f in doc["findings"] if f["kind"] == "restart")
+    assert all(restart[k] is not None for k in ("from_time", "to_time", "from_measure", "to_measure"))
+    assert any(f["linked_to"] == restart["id"] for f in doc["findings"])
+
+
+def test_annotated_musicxml_validates_and_reimports(tmp_path, everything, musicxml_xsd_dir):
+    ref, result = everything
+    write_report(tmp_path, result, ref)
+    data = (tmp_path / "annotated.musicxml").read_bytes()
+    document = etree.fromstring(data)
+    schema = xsd_schema(musicxml_xsd_dir)
+    # MusicXML 4.0 XSD (W3C Music Notation Community Group): the file must be valid
+    assert schema.validate(document), schema.error_log.filter_from_errors()[:5]
+    # every kind with a notehead shows up with its colour and shape
+    heads = {(h.text, h.get("color")) for h in document.iter("notehead")}
+    for kind in ("wrong_pitch", "missed", "late", "held_short"):
+        assert (KIND_STYLES[kind].notehead, KIND_STYLES[kind].colour) in heads
+    words = " ".join(t.text or "" for t in document.iter("words"))
+    assert "+E6" in words and "restart: back to bar 8" in words
+    # music21 reads it back with the same number of notes as the part
+    import music21
+
+    score = music21.converter.parse(data, format="musicxml").stripTies()
+    pitches = sorted(p.midi for n in score.recurse().notes for p in n.pitches)
+    assert pitches == sorted(n.pitch for n in ref.notes)
+
+
+def test_annotated_musicxml_from_a_real_file(tmp_path, musicxml_xsd_dir):
+    """Annotate a MusicXML file written by music21 (our own little tune) and validate it."""
+    import music21
+
+    from takescribe.score import load_reference
+
+    tune = music21.converter.parse("tinyNotation: 4/4 c4 d8 e8 f4 g4 a4 g4 e4 c4 d2 r2", makeNotation=True)
+    source = tmp_path / "tune.musicxml"
+    tune.write("musicxml", fp=str(source))
+    ref = load_reference(source)
+    played = [Note(n.onset, n.offset, n.pitch + (2 if k == 3 else 0)) for k, n in enumerate(ref.notes) if k != 5]
+    result = compare_notes(ref, None, played)
+    assert {f.kind for f in result.findings} == {"wrong_pitch", "missed"}
+    data = annotate_musicxml(result, ref)
+    assert xsd_schema(musicxml_xsd_dir).validate(etree.fromstring(data))
+    marked = [n for n in etree.fromstring(data).iter("note") if n.get("color")]
+    assert len(marked) == 2
+
+
+class _Collector(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags: list = []
+        self.references: list = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+        for name, value in attrs:
+            if name in ("src", "href", "xlink:href", "data", "action", "poster") and value:
+                self.references.append(value)
+
+
+def test_html_is_self_contained_with_piano_roll_and_table(tmp_path, everything):
+    ref, result = everything
+    take = tmp_path / "take.flac"
+    sr = 8000
+    sf.write(take, (0.1 * np.sin(2 * np.pi * 440 * np.arange(sr) / sr)).astype(np.float32), sr)
+    write_report(tmp_path / "r", result, ref, take_path=take)
+    page = (tmp_path / "r" / "report.html").read_text(encoding="utf-8")
+    parser = _Collector()
+    parser.feed(page)
+    assert parser.tags.count("svg") >= 3  # piano-roll rows, tempo curve, legend and table markers
+    assert "table" in parser.tags and page.count("<tr") == len(result.findings) + 1
+    assert "not a grade" in page and "on this computer only" in page
+    # nothing is fetched from elsewhere: every src/href is a data: URI or an in-page anchor
+    assert parser.references, "the audio should be embedded"
+    for ref_value in parser.references:
+        assert ref_value.startswith(("data:", "#")), ref_value
+    assert not re.search(r"""(src|href)\s*=\s*["']?\s*(https?:)?//""", page)
+    assert "@import" not in page and "url(http" not in page
+    # the embedded audio decodes back to the take (libsndfile)
+    uri = next(r for r in parser.references if r.startswith("data:audio/"))
+    audio, audio_sr = sf.read(io.BytesIO(base64.b64decode(uri.split(",", 1)[1])))
+    assert audio_sr == sr and len(audio) == sr
+    for f in result.findings:
+        assert f"#{f.id} " in page
+
+
+def test_large_take_is_embedded_smaller(tmp_path, everything, monkeypatch):
+    import takescribe.report as report
+
+    ref, result = everything
+    take = tmp_path / "take.wav"
+    sr = 22050
+    sf.write(take, (0.1 * np.sin(2 * np.pi * 220 * np.arange(3 * sr) / sr)).astype(np.float32), sr)
+    monkeypatch.setattr(report, "MAX_EMBED_BYTES", take.stat().st_size // 4)
+    mime, data = report._embedded_audio(take)
+    assert len(data) < take.stat().st_size // 4
+    audio, audio_sr = sf.read(io.BytesIO(data))
+    assert audio_sr <= 16000 and abs(len(audio) / audio_sr - 3.0) < 0.05
