@@ -71,7 +71,8 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
          "deviation": float | null,      # seconds (timing, duration, pause) or semitones
          "reference_index": int | null, "played_index": int | null,
          "linked_to": int | null,        # id of the hesitation/restart this belongs to
-         "from_time": float | null, "to_time": float | null,         # restart only
+         "from_time": float | null,      # restart only: where the left-off attempt falls silent
+         "to_time": float | null,        # restart only: first onset of the attempt that goes on
          "from_measure": int | null, "from_beat": float | null,      # restart only
          "to_measure": int | null, "to_beat": float | null,          # restart only
          "text": str}, ...
@@ -609,6 +610,7 @@ class _Restart:
 def _find_restarts(
     part: _Part,
     played_on: np.ndarray,
+    played_off: np.ndarray,
     played_pitch: np.ndarray,
     anchors: list,
     expected0: np.ndarray,
@@ -696,7 +698,7 @@ def _find_restarts(
                 dropped_pairs=dropped,
                 to_ref=int(to_ref),
                 from_ref=int(from_ref),
-                from_time=float(max(played_on[abandoned])),
+                from_time=float(min(max(played_off[abandoned]), later_start)),
                 to_time=float(later_start),
             )
         )
@@ -801,7 +803,7 @@ def compare_notes(
     anchors = _uncross(anchors, expected0, played_on, key=lambda i, j: part.pitches[i])
 
     # 2. restarts
-    restarts = _find_restarts(part, played_on, played_pitch, anchors, expected0, min_restart_notes=min_restart_notes)
+    restarts = _find_restarts(part, played_on, played_off, played_pitch, anchors, expected0, min_restart_notes=min_restart_notes)
     abandoned_owner: dict = {}
     for k, r in enumerate(restarts):
         for j in r.abandoned:
@@ -928,7 +930,7 @@ def compare_notes(
         if expected_length > 0 and abs(difference) > timing_tolerance:
             ratio = played_length / expected_length
             kind = None
-            if ratio < 1.0 - duration_tolerance:
+            if ratio < 1.0 - duration_tolerance and _silence_after(j, played_on, played_off, pool) > timing_tolerance:
                 kind = "held_short"
             elif ratio > 1.0 + duration_tolerance and g not in before_hesitation:
                 kind = "held_long"
@@ -1002,6 +1004,18 @@ def compare_notes(
         played_notes=tuple(played),
         measure_times=measure_times,
     )
+
+
+def _silence_after(j: int, played_on: np.ndarray, played_off: np.ndarray, pool: np.ndarray) -> float:
+    """Seconds of silence between the release of played note ``j`` and the next onset.
+
+    A note released just as the next one starts was held as long as the line allowed (an
+    early or extra next note is reported on its own), so it is not called short.
+    """
+    later = played_on[pool][played_on[pool] > played_on[j] + 0.05]
+    if later.size == 0:
+        return np.inf
+    return float(later.min() - played_off[j])
 
 
 def _bar(pos: dict, *, lower: bool = False) -> str:
