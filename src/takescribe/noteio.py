@@ -9,8 +9,9 @@ Conventions
 - Reading is tolerant: columns may be separated by tabs, spaces or commas
   (so ``.csv`` works), columns after the third are ignored, blank lines
   (also lines of separators only) and lines starting with ``#`` are skipped,
-  CRLF/CR line ends and a UTF-8 byte order mark are accepted, and the header may be missing (the first line is a
-  header when its first column is not a number). Pitches must be whole MIDI
+  CRLF/CR line ends and a UTF-8 byte order mark are accepted, and the header
+  may be missing (the first line is a header when its first column is not a
+  number). Pitches must be whole MIDI
   numbers 0..127 (``60`` or ``60.0``); onsets >= 0; offsets after onsets.
   MAPS has no velocity, so notes read get velocity 80 (the :class:`Note`
   default). Every error names the file and the line.
