@@ -466,8 +466,9 @@ def _check_riff_complete(path: Path) -> None:
     """
     size = path.stat().st_size
     with open(path, "rb") as fh:
-        if fh.read(12)[8:12] != b"WAVE":
-            return  # libsndfile accepted it; nothing we know how to check
+        riff = fh.read(12)
+        if riff[:4] != b"RIFF" or riff[8:12] != b"WAVE":
+            return  # big-endian RIFX or something libsndfile knows better; nothing we check
         position = 12
         for _ in range(10_000):  # a bound on chunks, against damaged sizes that loop
             header = fh.read(8)

@@ -715,7 +715,7 @@ def compare_notes(
     *,
     timing_tolerance: float = 0.100,
     duration_tolerance: float = 0.5,
-    match_margin: float = 0.15,
+    match_margin: float = 0.3,
     anchor_window: float = 0.5,
     hesitation_threshold: float = 0.3,
     neighbours: int = 4,

@@ -125,15 +125,16 @@ def _lobe_width_bins(freqs: np.ndarray, bins_per_octave: int) -> np.ndarray:
 
     librosa's VQT filter bandwidth is ``alpha·f + gamma`` with
     ``gamma = 24.7·alpha/0.108`` (ERB-based default); in bins of a log axis that is
-    ``bins_per_octave·log2(1 + bandwidth/f)``. A Gaussian with that full width at
-    about 2.5 standard deviations matches the spectral peak of a steady sinusoid.
+    ``bins_per_octave·log2(1 + bandwidth/f)``. The magnitude response of the VQT to a
+    steady sinusoid, measured at 55, 220, 880 and 3520 Hz, is close to a Gaussian whose
+    standard deviation is 0.87–1.0 times that width (test_dictionary checks the fit).
     """
     r = 2.0 ** (1.0 / bins_per_octave)
     alpha = (r * r - 1) / (r * r + 1)
     gamma = 24.7 * alpha / 0.108
     bandwidth = alpha * freqs + gamma
     width_bins = bins_per_octave * np.log2(1.0 + bandwidth / freqs)
-    return np.maximum(width_bins / 2.5, 0.45)
+    return np.maximum(0.9 * width_bins, 0.5)
 
 
 def harmonic_dictionary(

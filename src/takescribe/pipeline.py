@@ -21,7 +21,8 @@ from .notes import Note
 from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
 from .tracking import activations_to_notes
 
-__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "DEFAULT_SETTINGS"]
+__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "DEFAULT_SETTINGS",
+           "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS"]
 
 
 @dataclass(frozen=True)
@@ -61,9 +62,26 @@ class TranscriptionSettings:
     min_duration: float = 0.05
     onset_shift: float = 0.0
     smoothing: int = 3
+    noise_templates: int = 3
+    attack_fraction: float = 0.3
+    reonset_dip: float = 0.6
+    local_window: float = 1.5
+    local_floor: float = 0.1
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
+# Polyphonic instruments (piano, guitar) and melodic ones differ in what a ghost note
+# looks like: chords leave weak partial-sharing activations and hammer noise, so
+# polyphonic tracking is stricter; melodic decoding already keeps one pitch a frame.
+POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.1, release_ratio=0.2,
+                                            reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
+MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.15, min_duration=0.06, release_ratio=0.2,
+                                         reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
+
+
+def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
+    """Default settings for an instrument: polyphonic or melodic tracking."""
+    return POLYPHONIC_SETTINGS if resolve_instrument(instrument).polyphonic else MELODIC_SETTINGS
 
 
 @dataclass(frozen=True)
@@ -96,6 +114,19 @@ class Transcription:
     timings: dict = field(default_factory=dict)
 
 
+def _noise_templates(n_bins: int, n_noise: int) -> np.ndarray:
+    """Smooth broadband templates (flat, and tilted towards the bass and the treble).
+
+    They absorb what no pitch template explains, chiefly the hammer and bow noise at
+    note attacks, which otherwise leaks into short ghost notes of low pitches. Their
+    activations are discarded.
+    """
+    x = np.linspace(0.0, 1.0, n_bins)
+    shapes = [np.ones(n_bins), 1.0 - 0.8 * x, 0.2 + 0.8 * x][:n_noise]
+    N = np.stack(shapes, axis=1).astype(np.float32)
+    return N / N.sum(axis=0, keepdims=True)
+
+
 def _normalize(V: np.ndarray) -> tuple[np.ndarray, float]:
     """Scale V so an average frame sums to 1 (keeps penalty weights scale-free)."""
     scale = float(V.sum()) / max(V.shape[1], 1)
@@ -110,7 +141,7 @@ def transcribe(
     *,
     instrument: "str | int | Instrument" = "piano",
     dictionary: Dictionary | None = None,
-    settings: TranscriptionSettings = DEFAULT_SETTINGS,
+    settings: TranscriptionSettings | None = None,
     mask: np.ndarray | None = None,
     mask_penalty: float = 0.0,
     onset_thresholds: np.ndarray | None = None,
@@ -129,7 +160,8 @@ def transcribe(
     dictionary : Dictionary, optional
         A calibrated dictionary (e.g. from ``takescribe dictionary learn``); rebuilt on
         this take's frequency axis.
-    settings : TranscriptionSettings
+    settings : TranscriptionSettings, optional
+        Defaults to :func:`settings_for` the instrument.
     mask, mask_penalty :
         Score prior on H (see :func:`takescribe.nmf.decompose`).
     onset_thresholds : np.ndarray (n_pitches, n_frames), optional
@@ -146,6 +178,8 @@ def transcribe(
     say = progress or (lambda message: None)
     timings: dict[str, float] = {}
     preset = resolve_instrument(instrument)
+    if settings is None:
+        settings = settings_for(preset)
     t0 = time.perf_counter()
     if spectrogram is None:
         say("spectrogram")
@@ -164,13 +198,21 @@ def transcribe(
     say("factorization")
     common = dict(beta=settings.beta, n_iter=settings.n_iter, tol=settings.tol, continuity=settings.continuity,
                   sparsity=settings.sparsity, mask=mask, mask_penalty=mask_penalty)
-    first: Factorization = decompose(V, initial.W, **common)
-    final_dictionary, H = initial, first.H
+    K = initial.n_pitches
+    noise = _noise_templates(V.shape[0], settings.noise_templates)
+    if mask is not None and settings.noise_templates:
+        mask = np.vstack([mask, np.ones((settings.noise_templates, mask.shape[1]), mask.dtype)])
+        common["mask"] = mask
+    first: Factorization = decompose(V, np.hstack([initial.W, noise]), **common)
+    final_dictionary, H_full = initial, first.H
     if settings.adapt:
         say("adapting templates to the instrument")
-        final_dictionary = adapt_dictionary(V, initial, first.H, n_iter=settings.adapt_iter, beta=settings.beta,
-                                            min_activation=0.01)
-        H = decompose(V, final_dictionary.W, H_init=first.H, **common).H
+        # adapt on what the pitch templates explain: V minus the noise part
+        V_pitched = np.maximum(V - noise @ first.H[K:], 0.0).astype(np.float32)
+        final_dictionary = adapt_dictionary(V_pitched, initial, first.H[:K], n_iter=settings.adapt_iter,
+                                            beta=settings.beta, min_activation=0.01)
+        H_full = decompose(V, np.hstack([final_dictionary.W, noise]), H_init=first.H, **common).H
+    H = H_full[:K]
     timings["factorization"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     say("note tracking")
@@ -186,6 +228,10 @@ def transcribe(
         smoothing=settings.smoothing,
         polyphonic=preset.polyphonic,
         onset_shift=settings.onset_shift,
+        attack_fraction=settings.attack_fraction,
+        reonset_dip=settings.reonset_dip,
+        local_window=settings.local_window,
+        local_floor=settings.local_floor,
     )
     timings["tracking"] = time.perf_counter() - t0
-    return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H, preset, timings)
+    return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H[:K], preset, timings)

@@ -2,9 +2,11 @@
 
 Method
 ------
-1. ``H`` is divided by one global reference level (its largest value), so
-   thresholds are fractions of the loudest activation in the take; per-pitch
-   normalisation would promote noise on pitches that are never played.
+1. ``H`` is divided by one global reference level (its largest value); the
+   thresholds are then fractions of a *local* reference, the loudest activation
+   within a few seconds (floored at a fraction of the global one), so a quiet
+   passage is judged against its surroundings. Per-pitch normalisation would
+   promote noise on pitches that are never played.
 2. A running median over ``smoothing`` frames removes single-frame spikes.
 3. *Melodic* instruments (one note at a time) first pass through a Viterbi
    decoding over the states {silence, pitch 1…K} (``librosa.sequence.viterbi``)
@@ -15,8 +17,8 @@ Method
    onset is detected where the activation rises by at least ``reonset_rise`` (a
    fraction of the reference) over ``reonset_frames`` frames after having fallen:
    this splits repeated notes of one pitch.
-5. A note's onset is placed at the steepest rise before its first threshold
-   crossing; it ends where the region ends, at the next onset of the same pitch, or
+5. A note's onset is placed where its rise crosses ``attack_fraction`` of its
+   peak; it ends where the region ends, at the next onset of the same pitch, or
    where the activation falls below ``release_ratio`` of the note's own peak,
    whichever comes first. Notes shorter than ``min_duration`` are dropped.
 6. Velocity is ``round(127 · sqrt(peak / reference))`` clipped to 1..127: a
@@ -81,7 +83,7 @@ def monophonic_activations(Hn: np.ndarray, *, silence_level: float = 0.1, stay_p
     return out
 
 
-def _split_onsets(a: np.ndarray, start: int, stop: int, rise: float, frames: int) -> list[int]:
+def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float) -> list[int]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``."""
     onsets = [start]
     if stop - start <= 2 * frames:
@@ -91,7 +93,9 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: float, frames: int
     padded = np.concatenate([np.full(frames, seg[0]), seg])
     prev_min = np.lib.stride_tricks.sliding_window_view(padded[:-1], frames).min(axis=1)
     gain = seg - prev_min
-    candidates = np.nonzero((gain[1:-1] >= rise) & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
+    rise = rise[start:stop]
+    ok = (gain >= rise) & (prev_min <= dip * seg)
+    candidates = np.nonzero(ok[1:-1] & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
     last = 0
     for c in candidates:
         if c - last >= 2 * frames:
@@ -115,6 +119,10 @@ def activations_to_notes(
     polyphonic: bool = True,
     reference: float | None = None,
     onset_shift: float = 0.0,
+    attack_fraction: float = 0.3,
+    reonset_dip: float = 0.6,
+    local_window: float = 1.5,
+    local_floor: float = 0.1,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -145,6 +153,16 @@ def activations_to_notes(
         Normalisation level; defaults to ``H.max()``.
     onset_shift : float
         Seconds added to every note time (analysis latency compensation).
+    reonset_dip : float
+        A re-onset also needs the activation to have dipped to at most this fraction
+        of its new value (vibrato and bow changes do not split notes).
+    local_window, local_floor : float
+        Thresholds are relative to the loudest activation within ± ``local_window``
+        seconds (never below ``local_floor`` of the take's loudest), so quiet passages
+        are judged against their surroundings. 0 disables it.
+    attack_fraction : float
+        The onset is placed where the activation, rising to the note's peak, crosses
+        this fraction of the peak.
 
     Returns
     -------
@@ -164,24 +182,32 @@ def activations_to_notes(
     Hn = H.astype(np.float64) / ref
     if smoothing > 1:
         Hn = scipy.ndimage.median_filter(Hn, size=(1, int(smoothing)), mode="nearest")
-    if not polyphonic:
-        Hn = monophonic_activations(Hn, silence_level=offset_threshold * 2)
-    thresholds = np.broadcast_to(np.asarray(onset_threshold, dtype=float), Hn.shape) if np.ndim(onset_threshold) else None
     hop = float(np.median(np.diff(frame_times))) if T > 1 else 0.01
+    # local reference: the loudest activation within +-local_window seconds, floored
+    if local_window > 0:
+        width = max(int(round(2 * local_window / hop)) | 1, 1)
+        local = scipy.ndimage.maximum_filter1d(Hn.max(axis=0), size=width, mode="nearest")
+        local = np.maximum(local, local_floor)
+    else:
+        local = np.ones(T)
+    Hl = Hn / local[None, :]  # locally normalised activations, at most 1
+    Hsel = Hl if polyphonic else monophonic_activations(Hl, silence_level=2 * offset_threshold)
+    thresholds = np.broadcast_to(np.asarray(onset_threshold, dtype=float), Hn.shape)
+    rise = np.full(T, reonset_rise)
     end_time = frame_times[-1] + hop
+    lookback = max(int(round(0.1 / hop)), 1)
     notes: list[Note] = []
     for k in range(K):
-        a = Hn[k]
+        a = Hsel[k]
+        full = Hl[k]
         above = a > offset_threshold
         if not above.any():
             continue
         labels, n_regions = scipy.ndimage.label(above)
-        if n_regions == 0:
-            continue
-        slices = scipy.ndimage.find_objects(labels)
-        for sl in slices:
+        previous_end = 0
+        for sl in scipy.ndimage.find_objects(labels):
             start, stop = sl[0].start, sl[0].stop
-            onsets = _split_onsets(a, start, stop, reonset_rise, reonset_frames)
+            onsets = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
@@ -189,21 +215,26 @@ def activations_to_notes(
                     continue
                 peak_i = int(np.argmax(part))
                 peak = float(part[peak_i])
-                level = float(thresholds[k, on + peak_i]) if thresholds is not None else float(onset_threshold)
-                if peak < level:
+                if peak < float(thresholds[k, on + peak_i]):
                     continue
-                # onset at the steepest rise before the peak
-                rise_part = np.diff(a[max(on - 1, 0): on + peak_i + 1])
-                onset_frame = max(on - 1, 0) + int(np.argmax(rise_part)) + 1 if len(rise_part) else on
-                onset_frame = min(onset_frame, on + peak_i)
+                # onset where the rise towards the peak crosses `attack_fraction` of it;
+                # melodic decoding may hide the start of the rise, so look back on the
+                # undecoded activation (never past the previous note of this pitch)
+                first = max(on - (lookback if i == 0 else 0), previous_end)
+                rising = full[first: on + peak_i + 1]
+                below = np.nonzero(rising < attack_fraction * peak)[0]
+                onset_frame = first + (int(below[-1]) + 1 if len(below) else 0)
+                onset_frame = max(min(onset_frame, on), first) if i == 0 and not len(below) else onset_frame
                 # release: first frame after the peak below release_ratio * peak
                 after = part[peak_i:]
                 low = np.nonzero(after < release_ratio * peak)[0]
                 end_frame = on + peak_i + (int(low[0]) if len(low) else len(after))
+                previous_end = end_frame
                 onset = frame_times[onset_frame] + onset_shift
                 offset = (frame_times[end_frame] if end_frame < T else end_time) + onset_shift
                 if offset - onset < min_duration:
                     continue
-                velocity = int(np.clip(round(127 * np.sqrt(min(peak, 1.0))), 1, 127))
+                loudness = float(Hn[k, on + peak_i])
+                velocity = int(np.clip(round(127 * np.sqrt(min(loudness, 1.0))), 1, 127))
                 notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), int(pitches[k]), velocity))
     return sort_notes(notes)
