@@ -234,10 +234,15 @@ def note_table(score: stream.Score) -> list[tuple]:
     for part in score.parts:
         part = part.stripTies()
         for i, m in enumerate(part.getElementsByClass(stream.Measure)):
+            # a pickup bar counts from where its notes fall in a full bar
+            pad = Fraction(0)
+            bar = Fraction(m.barDuration.quarterLength).limit_denominator(48)
+            if i == 0 and Fraction(m.duration.quarterLength).limit_denominator(48) < bar:
+                pad = bar - Fraction(m.duration.quarterLength).limit_denominator(48)
             for el in m.recurse().notes:
                 if el.duration.isGrace:
                     continue
-                pos = Fraction(el.getOffsetInHierarchy(m)).limit_denominator(48)
+                pos = pad + Fraction(el.getOffsetInHierarchy(m)).limit_denominator(48)
                 ql = Fraction(el.quarterLength).limit_denominator(48)
                 for p in el.pitches:
                     rows.append((p.midi, p.nameWithOctave, i, pos, ql))

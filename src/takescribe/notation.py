@@ -76,6 +76,7 @@ __all__ = [
     "quantize",
     "estimate_key",
     "spell_pitch",
+    "spell_voice",
     "split_hands",
     "assign_voices",
     "notate",
@@ -211,6 +212,8 @@ class QuantizedNote:
         MIDI velocity of the source note.
     source : Note or None
         The timed note this comes from.
+    spelling : (str, int, int) or None
+        ``(step letter, alter, octave)`` once spelled for the key (see :func:`spell_voice`).
     """
 
     onset_quarters: Fraction
@@ -218,6 +221,7 @@ class QuantizedNote:
     pitch: int
     velocity: int = 80
     source: Note | None = None
+    spelling: tuple | None = None
 
     def __post_init__(self) -> None:
         if not self.duration_quarters > 0:
@@ -498,6 +502,21 @@ def _extend_beats(beats: np.ndarray, first: float, last: float, onsets: np.ndarr
     return np.asarray(beats, dtype=float)
 
 
+def _steady_tails(beats: np.ndarray, first_onset: float, last_onset: float) -> np.ndarray:
+    """Beats before the first and after the last onset have no note to anchor them:
+    continue the neighbouring tempo (median of the 4 nearest intervals) instead."""
+    beats = beats.copy()
+    inside = np.flatnonzero((beats >= first_onset - 1e-6) & (beats <= last_onset + 1e-6))
+    if len(inside) < 3:
+        return beats
+    a, b = inside[0], inside[-1]
+    head = float(np.median(np.diff(beats[a:a + 5])))
+    tail = float(np.median(np.diff(beats[max(a, b - 4):b + 1])))
+    beats[:a] = beats[a] - head * np.arange(a, 0, -1)
+    beats[b + 1:] = beats[b] + tail * np.arange(1, len(beats) - b)
+    return beats
+
+
 def _beat_accents(notes: Sequence[Note], beats: np.ndarray) -> np.ndarray:
     """Metric accent per beat from the notes starting on it: the longest one, a bass onset,
     the loudest velocity and the number of notes (longer, lower, louder and fuller onsets
@@ -671,20 +690,25 @@ def estimate_meter(
     first = float(onsets[0]) if len(onsets) else float(beats[0])
     last = max(n.offset for n in notes) if notes else float(beats[-1])
     beats = _extend_beats(beats, first, last, onsets)
+    beats = _steady_tails(beats, first, float(onsets[-1]) if len(onsets) else last)
     # drop leading beats well before the first note
     while len(beats) > 2 and beats[1] <= first - 0.3 * period:
         beats = beats[1:]
 
-    accents = _beat_accents(notes, beats) if notes else np.zeros(len(beats))
+    # accents only over the beats the notes start in (empty tails would blur the statistics)
+    n_used = len(beats)
+    if notes:
+        n_used = int(np.searchsorted(beats, max(n.onset for n in notes) + 0.25 * period))
+        n_used = max(2, n_used)
+    accents = _beat_accents(notes, beats[:n_used]) if notes else np.zeros(len(beats))
     if ts is not None:
         num, den = ts
         bpb, _ = _beat_of(num, den)
-        phase = int(np.argmax(_phase_scores(accents, notes, beats, bpb)))
+        phase = int(np.argmax(_phase_scores(accents, notes, beats[:n_used], bpb)))
     else:
         compound = bool(notes) and len(beats) > 4 and _is_compound(notes, beats)
-        best = {m: _phase_scores(accents, notes, beats, m) for m in (2, 3, 4)}
+        best = {m: _phase_scores(accents, notes, beats[:n_used], m) for m in (2, 3, 4)}
         top = {m: float(np.max(v)) for m, v in best.items()}
-        import os; os.environ.get("TSDEBUG") and print("DEBUG", {m: np.round(v, 2).tolist() for m, v in best.items()}, compound, np.round(np.diff(beats)[:20], 3))
         # 2 and 4 beats both fit a 4/4 (or 12/8) bar: keep the common one -- 4 in simple
         # meters, 2 (6/8) in compound ones -- unless the other stands out clearly
         if compound:
@@ -958,6 +982,12 @@ _MINOR_SPELL = {0: (0, 0), 1: (1, -1), 2: (1, 0), 3: (2, 0), 4: (2, 1), 5: (3, 0
                 7: (4, 0), 8: (5, 0), 9: (5, 1), 10: (6, 0), 11: (6, 1)}
 
 
+# relative pitch classes whose spelling does not depend on the melody: the scale, and in
+# minor the raised sixth and seventh
+_MAJOR_PLAIN = frozenset({0, 2, 4, 5, 7, 9, 11})
+_MINOR_PLAIN = frozenset({0, 2, 3, 5, 7, 8, 9, 10, 11})
+
+
 def _tonic_of(fifths: int, mode: str) -> tuple[int, int]:
     """(letter index, pitch class) of the tonic of a key signature."""
     # major tonic walks the circle of fifths from C; minor is a third below
@@ -969,10 +999,13 @@ def _tonic_of(fifths: int, mode: str) -> tuple[int, int]:
     return letter, pc
 
 
-def spell_pitch(midi: int, *, key_fifths: int = 0, mode: str = "major") -> tuple[str, int, int]:
+def spell_pitch(midi: int, *, key_fifths: int = 0, mode: str = "major",
+                next_midi: int | None = None) -> tuple[str, int, int]:
     """Spell a MIDI pitch for a key: ``(step letter, alter in semitones, octave)``.
 
-    Diatonic pitches take the key's spelling; chromatic ones follow the common-practice
+    Diatonic pitches take the key's spelling; chromatic ones follow the direction of the
+    melody when ``next_midi`` is a semitone away (sharp when it rises, flat when it falls:
+    an altered note leans towards its resolution; common practice, no source), else the
     choices in ``_MAJOR_SPELL`` / ``_MINOR_SPELL`` (raised leading tone in minor, etc.).
 
     Examples
@@ -989,11 +1022,40 @@ def spell_pitch(midi: int, *, key_fifths: int = 0, mode: str = "major") -> tuple
     t_letter, t_pc = _tonic_of(int(key_fifths), mode)
     rel = (int(midi) - t_pc) % 12
     degree, _ = (_MAJOR_SPELL if mode == "major" else _MINOR_SPELL)[rel]
+    if rel not in (_MAJOR_PLAIN if mode == "major" else _MINOR_PLAIN) and next_midi is not None:
+        step = int(next_midi) - int(midi)
+        flat_degree = (_MAJOR_SPELL if mode == "major" else _MINOR_SPELL)[(rel + 1) % 12][0]
+        sharp_degree = (_MAJOR_SPELL if mode == "major" else _MINOR_SPELL)[(rel - 1) % 12][0]
+        if step == 1:
+            degree = sharp_degree
+        elif step == -1:
+            degree = flat_degree
     letter = (t_letter + degree) % 7
     natural = _LETTER_PC[letter]
     alter = ((int(midi) - natural + 6) % 12) - 6
     octave = (int(midi) - natural - alter) // 12 - 1
     return _LETTERS[letter], int(alter), int(octave)
+
+
+def spell_voice(voice: Sequence[QuantizedNote], *, key_fifths: int, mode: str) -> list[QuantizedNote]:
+    """Spell the notes of one voice for a key, looking at each note's melodic successor.
+
+    The successor of a note is the nearest pitch of the next onset in the voice (chords
+    included); see :func:`spell_pitch`.
+    """
+    from dataclasses import replace
+
+    onsets = sorted({n.onset_quarters for n in voice})
+    by_onset: dict[Fraction, list[int]] = {}
+    for n in voice:
+        by_onset.setdefault(n.onset_quarters, []).append(n.pitch)
+    following = {a: b for a, b in zip(onsets, onsets[1:])}
+    out = []
+    for n in voice:
+        nxt = following.get(n.onset_quarters)
+        next_midi = min(by_onset[nxt], key=lambda p: abs(p - n.pitch)) if nxt is not None else None
+        out.append(replace(n, spelling=spell_pitch(n.pitch, key_fifths=key_fifths, mode=mode, next_midi=next_midi)))
+    return out
 
 
 def estimate_key(notes: Sequence[Note] | Sequence[QuantizedNote], *, key_fifths: int | None = None) -> tuple[int, str]:
@@ -1212,18 +1274,23 @@ def notate(
     if key is not None:
         fifths, mode = int(key[0]), str(key[1])
         spell_pitch(60, key_fifths=fifths, mode=mode)  # validates
+    elif reference is not None and getattr(reference, "mode", None) in ("major", "minor"):
+        fifths, mode = int(reference.key_fifths), str(reference.mode)
     elif reference is not None and getattr(reference, "key_fifths", None) is not None:
         fifths, mode = estimate_key(qnotes, key_fifths=int(reference.key_fifths))
     else:
         fifths, mode = estimate_key(qnotes)
     if grand_staff is None:
         grand_staff = int(midi_program) in _PIANO_PROGRAMS
+    def voiced(staff_notes):
+        return tuple(tuple(spell_voice(v, key_fifths=fifths, mode=mode)) for v in assign_voices(staff_notes))
+
     if grand_staff:
         right, left = split_hands(qnotes)
-        staves = (tuple(tuple(v) for v in assign_voices(right)), tuple(tuple(v) for v in assign_voices(left)))
+        staves = (voiced(right), voiced(left))
         clefs = ("treble", "bass")
     else:
-        staves = (tuple(tuple(v) for v in assign_voices(qnotes)),)
+        staves = (voiced(qnotes),)
         median = float(np.median([n.pitch for n in qnotes])) if qnotes else 65.0
         clefs = ("treble" if median >= 57 else "bass",)
     return Notation(
@@ -1280,10 +1347,10 @@ def _fits(x: Fraction) -> bool:
     return (x / Fraction(1, 8)).denominator == 1 or (x / Fraction(1, 12)).denominator == 1
 
 
-def _m21_pitch(midi: int, fifths: int, mode: str):
+def _m21_pitch(n: QuantizedNote, fifths: int, mode: str):
     from music21 import pitch
 
-    step, alter, octave = spell_pitch(midi, key_fifths=fifths, mode=mode)
+    step, alter, octave = n.spelling or spell_pitch(n.pitch, key_fifths=fifths, mode=mode)
     p = pitch.Pitch()
     p.step = step
     p.octave = octave
@@ -1334,7 +1401,7 @@ def _fill_measure(container, events, m_start: Fraction, m_len: Fraction, beat: F
                 el = note.Rest()
                 el.duration = d
             else:
-                pitches = [_m21_pitch(n.pitch, fifths, mode) for n in sorted(ch, key=lambda n: n.pitch)]
+                pitches = [_m21_pitch(n, fifths, mode) for n in sorted(ch, key=lambda n: n.pitch)]
                 el = note.Note(pitches[0]) if len(pitches) == 1 else chord.Chord(pitches)
                 el.duration = d
                 vel = int(np.mean([n.velocity for n in ch]))
