@@ -1,0 +1,174 @@
+"""Command line: parses arguments, calls :mod:`takescribe.pipeline`, reports; nothing else.
+
+Exit codes: 0 success, 1 bad input, 2 usage error, 3 internal error, 4 output
+refused (exists without ``--force``, or not writable), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+import traceback
+import warnings
+from pathlib import Path
+
+from . import __version__
+from .errors import EXIT_INTERNAL, EXIT_OK, EXIT_USAGE, TakescribeError
+
+__all__ = ["main", "build_parser"]
+
+PRIVACY_NOTE = "All processing happens on this computer; nothing is uploaded."
+
+
+class Progress:
+    """Stage messages on stderr with the elapsed time (silent with ``--quiet``)."""
+
+    def __init__(self, quiet: bool = False) -> None:
+        self.quiet = quiet
+        self.start = time.perf_counter()
+
+    def __call__(self, message: str) -> None:
+        if not self.quiet:
+            print(f"takescribe [{time.perf_counter() - self.start:6.1f} s] {message}", file=sys.stderr, flush=True)
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--force", action="store_true", help="overwrite existing output files")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="takescribe",
+        description="Transcribe instrument takes into draft MIDI/MusicXML and compare them with the part. "
+        + PRIVACY_NOTE,
+    )
+    parser.add_argument("--version", action="version", version=f"takescribe {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    p = sub.add_parser("transcribe", help="turn a take into a draft MIDI file (and MusicXML, note list)")
+    p.add_argument("take", help="audio file of the take (WAV, FLAC, OGG, ...)")
+    p.add_argument("-o", "--output", dest="midi", help="draft MIDI file to write (.mid)")
+    p.add_argument("--notes", help="also write the notes as MAPS-style text (onset, offset, MIDI pitch)")
+    p.add_argument("--musicxml", help="also write a quantized MusicXML draft")
+    p.add_argument("--instrument", help="GM program number or name (default: the part's, else piano)")
+    p.add_argument("--score", help="reference part (MusicXML, .mxl or MIDI) to guide the transcription")
+    p.add_argument("--part", help="part of --score by name or 0-based index")
+    p.add_argument("--dictionary", help="calibrated dictionary from 'takescribe dictionary learn'")
+    p.add_argument("--tempo", type=float, help="quarter notes per minute for the notation (default: estimated)")
+    p.add_argument("--time-signature", help="e.g. 3/4 (default: the part's, else estimated)")
+    p.add_argument("--grid", help="force one quantization grid, e.g. 16th, 8th, 8th-triplet")
+    p.add_argument("--midi-type", type=int, choices=(0, 1), default=1, help="Standard MIDI File format (default 1)")
+    p.add_argument("--quantized-midi", action="store_true",
+                   help="write the notated rhythm to the MIDI file (default: the performed timing)")
+    _add_common(p)
+
+    p = sub.add_parser("evaluate", help="score a note list against a reference note list (mir_eval conventions)")
+    p.add_argument("estimate", help="notes to score: MIDI, MusicXML or MAPS-style text")
+    p.add_argument("reference", help="ground truth: MIDI, MusicXML or MAPS-style text")
+    p.add_argument("--json", help="also write the scores as JSON")
+    p.add_argument("--sustain", action="store_true", help="MIDI: let the sustain pedal extend note offsets")
+    p.add_argument("--part", help="MusicXML/MIDI reference: part by name or index")
+    _add_common(p)
+
+    p = sub.add_parser("compare", help="compare a take with its part and write a practice report")
+    p.add_argument("take", help="audio file of the take")
+    p.add_argument("part_file", metavar="part", help="reference part (MusicXML, .mxl or MIDI)")
+    p.add_argument("-o", "--output", required=True, help="report folder (created if missing)")
+    p.add_argument("--part", dest="part_name", help="part by name or 0-based index")
+    p.add_argument("--instrument", help="GM program number or name (default: the part's)")
+    p.add_argument("--dictionary", help="calibrated dictionary from 'takescribe dictionary learn'")
+    p.add_argument("--timing-tolerance", type=float, default=0.1,
+                   help="seconds off the player's own pulse before a note counts as early/late (default 0.1)")
+    p.add_argument("--duration-tolerance", type=float, default=0.5,
+                   help="relative length difference before a note counts as held short/long (default 0.5)")
+    p.add_argument("--allow-mismatch", action="store_true", help="compare even if the take does not seem to be the part")
+    _add_common(p)
+
+    p = sub.add_parser("dictionary", help="calibrated pitch templates for your own instrument")
+    dsub = p.add_subparsers(dest="dictionary_command", metavar="ACTION")
+    dsub.required = True
+    q = dsub.add_parser("learn", help="learn templates from a recording of a known passage (e.g. a chromatic scale)")
+    q.add_argument("recording", help="audio file of the passage")
+    q.add_argument("--score", required=True, help="the passage's part (MusicXML or MIDI)")
+    q.add_argument("--part", help="part by name or index")
+    q.add_argument("--instrument", help="GM program number or name (default: the part's)")
+    q.add_argument("-o", "--output", required=True, help="dictionary file to write (.npz)")
+    _add_common(q)
+    return parser
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    print(f"takescribe: warning: {message}", file=sys.stderr)
+
+
+def _run(args: argparse.Namespace, progress: Progress) -> int:
+    from . import pipeline
+
+    if args.command == "transcribe":
+        out = pipeline.transcribe_file(
+            args.take, midi_path=args.midi, notes_path=args.notes, musicxml_path=args.musicxml,
+            instrument=args.instrument, score_path=args.score, part=args.part, dictionary_path=args.dictionary,
+            tempo=args.tempo, time_signature=args.time_signature, grid=args.grid, midi_type=args.midi_type,
+            quantized_midi=args.quantized_midi, force=args.force, progress=progress,
+        )
+        print(f"{len(out.transcription.notes)} notes; wrote " + ", ".join(str(p) for p in out.written))
+        return EXIT_OK
+    if args.command == "evaluate":
+        scores = pipeline.evaluate_files(args.estimate, args.reference, json_path=args.json, sustain=args.sustain,
+                                         part=args.part, force=args.force)
+        print(pipeline.format_scores(scores))
+        return EXIT_OK
+    if args.command == "compare":
+        out = pipeline.compare_file(
+            args.take, args.part_file, args.output, part=args.part_name, instrument=args.instrument,
+            dictionary_path=args.dictionary, timing_tolerance=args.timing_tolerance,
+            duration_tolerance=args.duration_tolerance, allow_mismatch=args.allow_mismatch, force=args.force,
+            progress=progress,
+        )
+        print(pipeline.format_comparison_summary(out))
+        return EXIT_OK
+    if args.command == "dictionary" and args.dictionary_command == "learn":
+        learned = pipeline.learn_dictionary_file(args.recording, args.score, args.output, part=args.part,
+                                                 instrument=args.instrument, force=args.force, progress=progress)
+        print(f"wrote {args.output}: {learned.n_pitches} templates for {learned.instrument}")
+        return EXIT_OK
+    raise AssertionError(f"unhandled command {args.command}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``takescribe`` console script; returns the exit code."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse: usage errors exit 2, --help/--version exit 0
+        return int(exc.code) if isinstance(exc.code, int) else EXIT_USAGE
+    progress = Progress(quiet=getattr(args, "quiet", False))
+    debug = getattr(args, "debug", False)
+    previous = warnings.showwarning
+    warnings.showwarning = _show_warning
+    try:
+        return _run(args, progress)
+    except TakescribeError as exc:
+        if debug:
+            traceback.print_exc()
+        print(f"takescribe: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("takescribe: interrupted; no partial output was left behind", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug: say so plainly, keep the traceback behind --debug
+        if debug:
+            traceback.print_exc()
+        print(f"takescribe: internal error ({type(exc).__name__}: {exc}); rerun with --debug and report it",
+              file=sys.stderr)
+        return EXIT_INTERNAL
+    finally:
+        warnings.showwarning = previous
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,168 @@
+"""Score-informed transcription: the aligned reference part as a prior on the activations.
+
+Method
+------
+1. The reference is aligned with the take (:func:`takescribe.align.align_reference`).
+   The *whole* warping path is used, abandoned attempts included, so the notes of a
+   restarted phrase are expected at both places the student played them.
+2. :func:`score_mask` turns the aligned part into a mask ``M`` (n_pitches, n_frames):
+   1 where the part has the pitch sounding at the score position heard in that frame
+   (± ``tolerance`` seconds for alignment error), ``floor`` elsewhere.
+3. The factorization (:func:`takescribe.nmf.decompose`) starts from ``H`` multiplied by
+   ``M`` and adds the weighted L1 prior ``mask_penalty · Σ (1 − M) ⊙ H``: unexpected
+   pitches are discouraged, not forbidden, so a wrong or extra note with enough energy
+   still gets its activation. Templates are semi-learned on the take as in blind mode.
+4. Notes are tracked with a dual threshold (after Benetos, Klapuri and Dixon,
+   "Score-informed transcription for automatic piano tutoring", EUSIPCO 2012): the
+   usual onset threshold where the part expects a pitch, ``unexpected_factor`` times
+   it elsewhere, so only clear evidence makes an unwritten note.
+
+The score is a prior, never a cage: nothing in this module removes a detected note
+because the part does not have it.
+"""
+
+from __future__ import annotations
+
+from typing import Callable
+
+import numpy as np
+import scipy.ndimage
+
+from .align import Alignment, align_reference
+from .dictionary import Dictionary
+from .instruments import Instrument, resolve_instrument
+from .score import Reference, validate_reference
+from .spectrogram import compute_spectrogram
+from .transcription import Transcription, TranscriptionSettings, settings_for, transcribe
+
+__all__ = ["score_mask", "informed_transcription", "INFORMED_DEFAULTS"]
+
+INFORMED_DEFAULTS = {"tolerance": 0.1, "floor": 0.1, "mask_penalty": 0.3, "unexpected_factor": 2.0}
+_GRID = 0.01  # seconds per cell of the score piano roll
+
+
+def score_mask(
+    reference: Reference,
+    alignment: Alignment | None,
+    pitches: np.ndarray,
+    frame_times: np.ndarray,
+    *,
+    tolerance: float = 0.1,
+    floor: float = 0.1,
+) -> np.ndarray:
+    """Where the aligned part expects each pitch in each take frame.
+
+    Parameters
+    ----------
+    reference : Reference
+    alignment : Alignment or None
+        Take ↔ score map; None means the take follows the written tempo from 0 s.
+    pitches : np.ndarray (n_pitches,)
+        MIDI pitch of each dictionary row.
+    frame_times : np.ndarray (n_frames,)
+        Take time of each spectrogram frame, seconds.
+    tolerance : float
+        Seconds of slack on each side (alignment error, attack and release).
+    floor : float
+        Mask value where the part does not expect the pitch (0 forbids, 1 ignores the score).
+
+    Returns
+    -------
+    np.ndarray (n_pitches, n_frames) float32 in [floor, 1]
+    """
+    validate_reference(reference)
+    if not 0.0 <= floor <= 1.0:
+        raise ValueError(f"floor must be in range 0..1, got {floor}")
+    if tolerance < 0:
+        raise ValueError(f"tolerance must be >= 0 seconds, got {tolerance}")
+    pitches = np.asarray(pitches, dtype=int)
+    frame_times = np.asarray(frame_times, dtype=float)
+    row_of = {int(p): k for k, p in enumerate(pitches)}
+    end = max((n.offset for n in reference.notes), default=0.0) + 2 * tolerance + 1.0
+    n_cells = int(np.ceil(end / _GRID)) + 1
+    roll = np.zeros((len(pitches), n_cells), dtype=bool)
+    pad = int(round(tolerance / _GRID))
+    for note in reference.notes:
+        k = row_of.get(int(note.pitch))
+        if k is None:
+            continue
+        a = max(int(np.floor(note.onset / _GRID)) - pad, 0)
+        b = min(int(np.ceil(note.offset / _GRID)) + pad + 1, n_cells)
+        roll[k, a:b] = True
+    score_times = frame_times if alignment is None else np.asarray(alignment.take_to_score(frame_times), float)
+    cells = np.clip(np.round(score_times / _GRID).astype(int), 0, n_cells - 1)
+    expected = roll[:, cells]
+    # before the first aligned frame and after the last the part expects nothing
+    if alignment is not None:
+        outside = (frame_times < alignment.take_times[0] - tolerance) | (frame_times > alignment.take_times[-1] + tolerance)
+        expected[:, outside] = False
+    if len(frame_times) > 1 and tolerance > 0:
+        hop = float(np.median(np.diff(frame_times)))
+        width = 2 * int(round(tolerance / hop)) + 1
+        expected = scipy.ndimage.maximum_filter1d(expected.astype(np.uint8), size=width, axis=1).astype(bool)
+    return np.where(expected, 1.0, floor).astype(np.float32)
+
+
+def informed_transcription(
+    y: np.ndarray,
+    sr: int,
+    reference: Reference,
+    *,
+    alignment: Alignment | None = None,
+    instrument: "str | int | Instrument | None" = None,
+    dictionary: Dictionary | None = None,
+    settings: TranscriptionSettings | None = None,
+    tolerance: float = INFORMED_DEFAULTS["tolerance"],
+    floor: float = INFORMED_DEFAULTS["floor"],
+    mask_penalty: float = INFORMED_DEFAULTS["mask_penalty"],
+    unexpected_factor: float = INFORMED_DEFAULTS["unexpected_factor"],
+    progress: Callable[[str], None] | None = None,
+) -> Transcription:
+    """Transcribe a take guided by its reference part (see the module docstring).
+
+    Parameters
+    ----------
+    y, sr : the take (mono) and its sample rate.
+    reference : Reference
+    alignment : Alignment, optional
+        Computed with :func:`takescribe.align.align_reference` when not given.
+    instrument : str, int or Instrument, optional
+        Defaults to the part's MIDI program, else piano.
+    dictionary : Dictionary, optional
+        A calibrated dictionary.
+    settings : TranscriptionSettings, optional
+    tolerance, floor : see :func:`score_mask`.
+    mask_penalty : float
+        Weight of the L1 prior on unexpected activations.
+    unexpected_factor : float
+        Onset threshold multiplier where the part does not expect the pitch (>= 1).
+
+    Returns
+    -------
+    Transcription
+    """
+    validate_reference(reference)
+    if unexpected_factor < 1:
+        raise ValueError(f"unexpected_factor must be >= 1, got {unexpected_factor}")
+    if instrument is None:
+        instrument = reference.midi_program if reference.midi_program is not None else "piano"
+    preset = resolve_instrument(instrument)
+    settings = settings or settings_for(preset)
+    if alignment is None:
+        alignment = align_reference(y, sr, reference)
+    spectrogram = compute_spectrogram(y, sr)
+    if dictionary is None:
+        pitches = preset.pitches
+    else:
+        pitches = dictionary.pitches
+    # the part may go beyond the preset's usual range: include its pitches
+    part_pitches = np.array(sorted({int(n.pitch) for n in reference.notes}), dtype=int)
+    # (templates are built below by transcribe; we need their pitch list for the mask)
+    from_preset = np.union1d(pitches, part_pitches[(part_pitches >= 21) & (part_pitches <= 108)])
+    mask_pitches = from_preset
+    mask = score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance, floor=floor)
+    thresholds = np.where(mask >= 1.0, settings.onset_threshold, settings.onset_threshold * unexpected_factor)
+    return transcribe(
+        y, sr, instrument=preset, dictionary=dictionary, settings=settings, mask=mask, mask_penalty=mask_penalty,
+        onset_thresholds=thresholds, spectrogram=spectrogram, progress=progress, pitches=mask_pitches,
+    )

@@ -1,0 +1,253 @@
+"""Transcription of a signal: spectrogram → harmonic dictionary → NMF → note tracking.
+
+The blind stage chain (with an optional prior on H used by score-informed mode,
+:mod:`takescribe.informed`): the spectrogram is normalised so an average frame sums
+to one, factorized with the instrument's harmonic dictionary plus three smooth
+broadband templates, the partial amplitudes are adapted to the take (semi-learned
+mode) and the activations re-estimated, then tracked into notes.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
+from .instruments import Instrument, resolve_instrument
+from .nmf import Factorization, decompose
+from .notes import Note
+from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
+from .tracking import activations_to_notes
+
+__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "DEFAULT_SETTINGS",
+           "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram"]
+
+
+@dataclass(frozen=True)
+class TranscriptionSettings:
+    """Knobs of blind transcription (defaults tuned on the tuning split of the fixture corpus).
+
+    Attributes
+    ----------
+    beta : float
+        β-divergence of the factorization (1 = KL).
+    n_iter : int
+        Iterations of each factorization pass.
+    continuity, sparsity : float
+        Virtanen's temporal-continuity and sparseness weights.
+    adapt : bool
+        Semi-learned mode: adapt the partial amplitudes to the take, then re-estimate H.
+    adapt_iter : int
+    onset_threshold, offset_threshold, release_ratio, reonset_rise : float
+        Note-tracking levels (fractions of the loudest activation).
+    min_duration : float
+        Seconds.
+    onset_shift : float
+        Seconds added to note times to compensate the analysis delay.
+    """
+
+    beta: float = 1.0
+    n_iter: int = 60
+    tol: float = 1e-4
+    continuity: float = 0.0
+    sparsity: float = 0.0
+    adapt: bool = True
+    adapt_iter: int = 10
+    onset_threshold: float = 0.12
+    offset_threshold: float = 0.05
+    release_ratio: float = 0.08
+    reonset_rise: float = 0.08
+    min_duration: float = 0.05
+    onset_shift: float = 0.0
+    smoothing: int = 3
+    noise_templates: int = 3
+    attack_fraction: float = 0.3
+    reonset_dip: float = 0.6
+    local_window: float = 1.5
+    local_floor: float = 0.1
+
+
+DEFAULT_SETTINGS = TranscriptionSettings()
+# Polyphonic instruments (piano, guitar) and melodic ones differ in what a ghost note
+# looks like: chords leave weak partial-sharing activations and hammer noise, so
+# polyphonic tracking is stricter; melodic decoding already keeps one pitch a frame.
+POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.1, release_ratio=0.2,
+                                            reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
+MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.15, min_duration=0.06, release_ratio=0.2,
+                                         reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
+
+
+def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
+    """Default settings for an instrument: polyphonic or melodic tracking."""
+    return POLYPHONIC_SETTINGS if resolve_instrument(instrument).polyphonic else MELODIC_SETTINGS
+
+
+@dataclass(frozen=True)
+class Transcription:
+    """What blind or score-informed transcription produces.
+
+    Attributes
+    ----------
+    notes : list of Note
+    spectrogram : Spectrogram
+    dictionary : Dictionary
+        The dictionary used for the final pass (adapted when semi-learned).
+    initial_dictionary : Dictionary
+    H : np.ndarray (n_pitches, n_frames)
+        Final activations.
+    H_initial : np.ndarray (n_pitches, n_frames)
+        Activations of the first pass (before adaptation).
+    instrument : Instrument
+    timings : dict
+        Seconds spent per stage.
+    """
+
+    notes: list[Note]
+    spectrogram: Spectrogram
+    dictionary: Dictionary
+    initial_dictionary: Dictionary
+    H: np.ndarray
+    H_initial: np.ndarray
+    instrument: Instrument
+    timings: dict = field(default_factory=dict)
+
+
+def _noise_templates(n_bins: int, n_noise: int) -> np.ndarray:
+    """Smooth broadband templates (flat, and tilted towards the bass and the treble).
+
+    They absorb what no pitch template explains, chiefly the hammer and bow noise at
+    note attacks, which otherwise leaks into short ghost notes of low pitches. Their
+    activations are discarded.
+    """
+    x = np.linspace(0.0, 1.0, n_bins)
+    shapes = [np.ones(n_bins), 1.0 - 0.8 * x, 0.2 + 0.8 * x][:n_noise]
+    N = np.stack(shapes, axis=1).astype(np.float32)
+    return N / N.sum(axis=0, keepdims=True)
+
+
+def normalize_spectrogram(V: np.ndarray) -> tuple[np.ndarray, float]:
+    """Scale V so an average frame sums to 1 (keeps penalty weights scale-free)."""
+    scale = float(V.sum()) / max(V.shape[1], 1)
+    if scale <= 0:
+        return V, 1.0
+    return V / np.float32(scale), scale
+
+
+def transcribe(
+    y: np.ndarray,
+    sr: int = ANALYSIS_SR,
+    *,
+    instrument: "str | int | Instrument" = "piano",
+    dictionary: Dictionary | None = None,
+    settings: TranscriptionSettings | None = None,
+    mask: np.ndarray | None = None,
+    mask_penalty: float = 0.0,
+    onset_thresholds: np.ndarray | None = None,
+    spectrogram: Spectrogram | None = None,
+    progress: Callable[[str], None] | None = None,
+    pitches: np.ndarray | None = None,
+) -> Transcription:
+    """Transcribe a mono signal into note events (blind, or guided by a mask on H).
+
+    Parameters
+    ----------
+    y : np.ndarray (n_samples,)
+        Mono float signal at ``sr``.
+    sr : int
+    instrument : str, int or Instrument
+        Preset name or GM program.
+    dictionary : Dictionary, optional
+        A calibrated dictionary (e.g. from ``takescribe dictionary learn``); rebuilt on
+        this take's frequency axis.
+    settings : TranscriptionSettings, optional
+        Defaults to :func:`settings_for` the instrument.
+    mask, mask_penalty :
+        Score prior on H (see :func:`takescribe.nmf.decompose`).
+    onset_thresholds : np.ndarray (n_pitches, n_frames), optional
+        Per-pitch, per-frame onset thresholds (score-informed dual threshold).
+    spectrogram : Spectrogram, optional
+        Precomputed spectrogram of ``y``.
+    progress : callable, optional
+        Called with a short stage description.
+    pitches : np.ndarray, optional
+        MIDI pitches of the templates (default: the instrument's range). ``mask`` and
+        ``onset_thresholds`` rows follow these pitches (only those on the frequency
+        axis are kept, in order).
+
+    Returns
+    -------
+    Transcription
+    """
+    say = progress or (lambda message: None)
+    timings: dict[str, float] = {}
+    preset = resolve_instrument(instrument)
+    if settings is None:
+        settings = settings_for(preset)
+    t0 = time.perf_counter()
+    if spectrogram is None:
+        say("spectrogram")
+        spectrogram = compute_spectrogram(y, sr)
+    timings["spectrogram"] = time.perf_counter() - t0
+    if dictionary is None:
+        initial = harmonic_dictionary(spectrogram, instrument=preset, pitches=pitches)
+    else:
+        initial = validate_dictionary(dictionary.retuned(spectrogram.frequencies), spectrogram)
+    if pitches is not None and (mask is not None or onset_thresholds is not None):
+        # keep the prior rows of the pitches that have templates
+        rows = np.searchsorted(np.asarray(pitches), initial.pitches)
+        if mask is not None:
+            mask = mask[rows]
+        if onset_thresholds is not None:
+            onset_thresholds = onset_thresholds[rows]
+    V, _ = normalize_spectrogram(spectrogram.V)
+    empty = np.zeros((initial.n_pitches, spectrogram.n_frames), np.float32)
+    if not np.any(V):
+        warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
+        return Transcription([], spectrogram, initial, initial, empty, empty, preset, timings)
+    t0 = time.perf_counter()
+    say("factorization")
+    common = dict(beta=settings.beta, n_iter=settings.n_iter, tol=settings.tol, continuity=settings.continuity,
+                  sparsity=settings.sparsity, mask=mask, mask_penalty=mask_penalty)
+    K = initial.n_pitches
+    noise = _noise_templates(V.shape[0], settings.noise_templates)
+    if mask is not None and settings.noise_templates:
+        mask = np.vstack([mask, np.ones((settings.noise_templates, mask.shape[1]), mask.dtype)])
+        common["mask"] = mask
+    first: Factorization = decompose(V, np.hstack([initial.W, noise]), **common)
+    final_dictionary, H_full = initial, first.H
+    if settings.adapt:
+        say("adapting templates to the instrument")
+        # adapt on what the pitch templates explain: V minus the noise part
+        V_pitched = np.maximum(V - noise @ first.H[K:], 0.0).astype(np.float32)
+        final_dictionary = adapt_dictionary(V_pitched, initial, first.H[:K], n_iter=settings.adapt_iter,
+                                            beta=settings.beta, min_activation=0.01)
+        H_full = decompose(V, np.hstack([final_dictionary.W, noise]), H_init=first.H, **common).H
+    H = H_full[:K]
+    timings["factorization"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    say("note tracking")
+    notes = activations_to_notes(
+        H,
+        final_dictionary.pitches,
+        spectrogram.frame_times,
+        onset_threshold=settings.onset_threshold if onset_thresholds is None else onset_thresholds,
+        offset_threshold=settings.offset_threshold,
+        release_ratio=settings.release_ratio,
+        reonset_rise=settings.reonset_rise,
+        min_duration=settings.min_duration,
+        smoothing=settings.smoothing,
+        polyphonic=preset.polyphonic,
+        onset_shift=settings.onset_shift,
+        attack_fraction=settings.attack_fraction,
+        reonset_dip=settings.reonset_dip,
+        local_window=settings.local_window,
+        local_floor=settings.local_floor,
+    )
+    timings["tracking"] = time.perf_counter() - t0
+    return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H[:K], preset, timings)
+
+
