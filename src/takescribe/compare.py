@@ -17,7 +17,7 @@ Method
    notes become ``extra`` findings linked to ONE ``restart`` finding, and the timing model
    is cut at the bar the player went back to.
 4. Local tempo: reference onsets are grouped (chords), and the take time of each group is
-   predicted by a robust line (Theil–Sen) through its neighbouring groups
+   predicted by a robust line (Siegel's repeated median) through its neighbouring groups
    (``neighbours`` on each side, the group itself left out). Gradual tempo drift is
    followed by the line, so only the local residual counts as early or late.
 5. Hesitations: walking through the part, a group that arrives more than
@@ -478,20 +478,67 @@ def _uncross(pairs, ref_time, est_time, key):
     return out
 
 
+def _same_pitch_pairs(ref_on, ref_off, ref_pitch, played_on, played_off, played_pitch, pool, refs, *, window):
+    """Same-pitch matching of reference notes ``refs`` with played notes ``pool`` (global indices).
+
+    After the maximum matching, each played note moves to the nearest free reference note of
+    its pitch when that is closer (the matching only maximises the count), and notes freed
+    that way get a second chance.
+    """
+    refs = np.asarray(refs, dtype=int)
+    pool = np.asarray(pool, dtype=int)
+    pairs = _match_notes(ref_on[refs], ref_off[refs], ref_pitch[refs], played_on[pool], played_off[pool],
+                         played_pitch[pool], window=window, same_pitch=True)
+    pairs = [(int(refs[i]), int(pool[j])) for i, j in pairs]
+    pairs = _uncross(pairs, ref_on, played_on, key=lambda i, j: ref_pitch[i])
+    by_pitch: dict = {}
+    for i in refs:
+        by_pitch.setdefault(int(ref_pitch[i]), []).append(int(i))
+    for _ in range(3):
+        matched = {i for i, _ in pairs}
+        changed = False
+        for n, (i, j) in enumerate(pairs):
+            best, best_distance = i, abs(ref_on[i] - played_on[j])
+            for other in by_pitch.get(int(ref_pitch[i]), ()):
+                distance = abs(ref_on[other] - played_on[j])
+                if other not in matched and distance < best_distance - 1e-9:
+                    best, best_distance = other, distance
+            if best != i:
+                matched.discard(i)
+                matched.add(best)
+                pairs[n] = (best, j)
+                changed = True
+        if not changed:
+            break
+    left_refs = np.array([i for i in refs if i not in {a for a, _ in pairs}], dtype=int)
+    left_pool = np.array([j for j in pool if j not in {b for _, b in pairs}], dtype=int)
+    if left_refs.size and left_pool.size:
+        more = _match_notes(ref_on[left_refs], ref_off[left_refs], ref_pitch[left_refs], played_on[left_pool],
+                            played_off[left_pool], played_pitch[left_pool], window=window, same_pitch=True)
+        pairs += [(int(left_refs[i]), int(left_pool[j])) for i, j in more]
+        pairs = _uncross(pairs, ref_on, played_on, key=lambda i, j: ref_pitch[i])
+    return pairs
+
+
 # --------------------------------------------------------------------------- tempo model
 
 
-def _theil_sen(x: np.ndarray, y: np.ndarray, default_slope: float) -> tuple[float, float]:
+def _robust_line(x: np.ndarray, y: np.ndarray, default_slope: float) -> tuple[float, float]:
+    """Siegel's repeated-median line (breakdown point 50 %): one late or early note among
+    its neighbours does not tilt the local tempo."""
     if len(x) == 0:
         return default_slope, 0.0
+    slope = default_slope
     if len(x) >= 2:
         dx = x[None, :] - x[:, None]
         dy = y[None, :] - y[:, None]
-        upper = np.triu(np.abs(dx) > 1e-6, k=1)
-        slopes = dy[upper] / dx[upper]
-        slope = float(np.median(slopes)) if slopes.size else default_slope
-    else:
-        slope = default_slope
+        valid = np.abs(dx) > 1e-6
+        per_point = []
+        for k in range(len(x)):
+            if np.any(valid[k]):
+                per_point.append(float(np.median(dy[k, valid[k]] / dx[k, valid[k]])))
+        if per_point:
+            slope = float(np.median(per_point))
     # a local line steeper or flatter than four times the overall pace is not a tempo
     slope = float(np.clip(slope, default_slope / 4.0, default_slope * 4.0))
     intercept = float(np.median(y - slope * x))
@@ -511,9 +558,9 @@ class _TempoModel:
     def segment_at(self, s: float) -> int:
         return int(np.searchsorted(np.asarray(self.segment_starts), s + 1e-9, side="right")) - 1
 
-    def fit(self, s: float, *, exclude_group: int | None = None) -> tuple[float, float] | None:
+    def fit(self, s: float, *, exclude_group: int | None = None, segment: int | None = None) -> tuple[float, float] | None:
         """Local line (slope, intercept) of take time against score time around ``s``."""
-        seg = self.segment_at(s)
+        seg = self.segment_at(s) if segment is None else segment
         members = np.flatnonzero(self.segment_of_group == seg)
         if exclude_group is not None:
             members = members[members != exclude_group]
@@ -524,7 +571,7 @@ class _TempoModel:
         after = members[gs > s + 1e-9][: self.neighbours]
         at = members[np.abs(gs - s) <= 1e-9]
         chosen = np.concatenate([before, at, after])
-        return _theil_sen(self.group_scores[chosen], self.group_takes[chosen], self.default_slope)
+        return _robust_line(self.group_scores[chosen], self.group_takes[chosen], self.default_slope)
 
     def predict(self, s: float, *, exclude_group: int | None = None, fallback: float | None = None) -> float:
         line = self.fit(s, exclude_group=exclude_group)
@@ -532,6 +579,13 @@ class _TempoModel:
             return float(s * self.default_slope) if fallback is None else float(fallback)
         slope, intercept = line
         return slope * s + intercept
+
+    def predict_in_segment(self, s: float, segment: int) -> float:
+        """Take time of score time ``s`` on the tempo line of another timing segment."""
+        line = self.fit(s, segment=segment)
+        if line is None:
+            return self.predict(s)
+        return line[0] * s + line[1]
 
     def slope(self, s: float) -> float:
         line = self.fit(s)
@@ -575,7 +629,7 @@ def _tempo_model(
         if seg[k] != seg[k - 1]:
             continue
         left = np.flatnonzero((seg == seg[k]) & (np.arange(len(gs)) < k))[-neighbours:]
-        slope, intercept = _theil_sen(gs[left], gt[left], default_slope)
+        slope, intercept = _robust_line(gs[left], gt[left], default_slope)
         pred_k = slope * gs[k] + intercept
         shift_k = gt[k] - pred_k
         expected_gap = slope * (gs[k] - gs[k - 1])
@@ -588,7 +642,7 @@ def _tempo_model(
             continue  # one late note, the music went on at the old place
         pause_start = float(pred_k)
         hesitations.append((k, float(shift_k), pause_start))
-        starts = sorted(starts + [float(gs[k]) - 1e-6])
+        starts = sorted(starts + [float(gs[k]) - 1e-3])
     seg = segments_for(starts)
     return _TempoModel(gs, gt, seg, starts, default_slope, neighbours, hesitations)
 
@@ -812,7 +866,8 @@ def compare_notes(
     anchors = [(i, j) for i, j in anchors if (i, j) not in dropped and j not in abandoned_owner]
     anchored_refs = {i for i, _ in anchors}
     anchors += [(i, j) for r in restarts for i, j in r.resumed_pairs if i not in anchored_refs]
-    breaks = [float(part.onsets[r.to_ref]) for r in restarts]
+    # a segment starts just before the note the player went back to (group keys are rounded)
+    breaks = [float(part.onsets[r.to_ref]) - 1e-3 for r in restarts]
 
     # 3. local tempo and hesitations, from the anchors; re-anchoring around the local-tempo
     # prediction lets the anchors follow a take that drifts away from a coarse alignment
@@ -833,10 +888,34 @@ def compare_notes(
     # 4. final matching around the local-tempo prediction
     pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
     window = timing_tolerance + match_margin
-    same = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
-                        window=window, same_pitch=True)
-    same = [(i, int(pool[j])) for i, j in same]
-    same = _uncross(same, predicted, played_on, key=lambda i, j: part.pitches[i])
+    same = _same_pitch_pairs(predicted, pred_off, part.pitches, played_on, played_off, played_pitch, pool,
+                             np.arange(n_ref), window=window)
+    # around a hesitation a chord can be split by the pause (one hand before it, one after):
+    # the notes left over next to the pause are tried against the tempo line of the other side
+    alt_expected: dict = {}
+    taken_ref, taken_played = {i for i, _ in same}, {j for _, j in same}
+    for k, _pause, _start in model.hesitations:
+        s_here, s_before = float(model.group_scores[k]), float(model.group_scores[k - 1])
+        seg = int(model.segment_of_group[k])
+        for i in range(n_ref):
+            if i in taken_ref:
+                continue
+            s_i = float(part.onsets[i])
+            if abs(s_i - s_here) < 1e-3:
+                alt_expected[i] = model.predict_in_segment(s_i, seg - 1)
+            elif s_before - 1e-3 < s_i < s_here - 1e-3:
+                alt_expected[i] = model.predict_in_segment(s_i, seg)
+    if alt_expected:
+        refs = np.array(sorted(alt_expected), dtype=int)
+        alt_on = predicted.copy()
+        alt_on[refs] = [alt_expected[i] for i in refs]
+        free = np.array([j for j in pool if j not in taken_played], dtype=int)
+        extra_pairs = _same_pitch_pairs(alt_on, alt_on + (pred_off - predicted), part.pitches, played_on, played_off,
+                                        played_pitch, free, refs, window=window)
+        same += extra_pairs
+        alt_expected = {i: alt_expected[i] for i, _ in extra_pairs}
+    else:
+        alt_expected = {}
     left_ref = np.array(sorted(set(range(n_ref)) - {i for i, _ in same}), dtype=int)
     left_played = np.array(sorted(set(pool.tolist()) - {j for _, j in same}), dtype=int)
     wrong = _match_notes(predicted[left_ref], pred_off[left_ref], part.pitches[left_ref], played_on[left_played],
@@ -845,13 +924,17 @@ def compare_notes(
     # within a chord, pair wrong notes by pitch order (lowest with lowest)
     wrong = _uncross(wrong, part.pitches, played_pitch, key=lambda i, j: round(float(part.onsets[i]), 4))
 
-    # 5. refit the tempo with every pairing, keeping the restart cuts
-    model = _tempo_model(part.onsets, played_on, same + wrong, breaks=breaks, neighbours=neighbours,
+    # 5. refit the tempo with every pairing (the split-chord notes aside), keeping the restart cuts
+    model = _tempo_model(part.onsets, played_on, [p for p in same if p[0] not in alt_expected] + wrong,
+                         breaks=breaks, neighbours=neighbours,
                          hesitation_threshold=hesitation_threshold, default_slope=default_slope)
     group_index = {round(float(s), 4): k for k, s in enumerate(model.group_scores)}
     predicted = np.array([model.predict(s, fallback=e) for s, e in zip(part.onsets, predicted)]) if n_ref else np.zeros(0)
     slopes = np.array([model.slope(s) for s in part.onsets]) if n_ref else np.zeros(0)
     pred_off = predicted + slopes * (part.offsets - part.onsets)
+    for i in alt_expected:
+        predicted[i] = alt_expected[i]
+        pred_off[i] = alt_expected[i] + slopes[i] * (part.offsets[i] - part.onsets[i])
 
     # 6. findings
     raw: list[dict] = []
@@ -883,9 +966,20 @@ def compare_notes(
         restart_items.append(item)
 
     hesitation_of_group: dict = {}
+    ref_of_played = {j: i for i, j in same + wrong}
+    pool_onsets = np.unique(played_on[pool]) if pool.size else np.zeros(0)
     for k, pause, start in model.hesitations:
         refs_here = [i for i in range(n_ref) if abs(part.onsets[i] - model.group_scores[k]) <= 1e-4]
         i0 = min(refs_here, key=lambda i: part.pitches[i]) if refs_here else None
+        # the music resumes after the longest silence between onsets around the delayed group
+        # (a chord split by the pause puts the delayed group's median on either side of it)
+        near = pool_onsets[(pool_onsets >= start - pause - 1.0) & (pool_onsets <= start + pause + 1.0)]
+        if near.size >= 2:
+            resume = float(near[1:][np.argmax(np.diff(near))])
+            start = resume - pause
+            resumed = [j for j in pool if abs(played_on[j] - resume) < 1e-9 and j in ref_of_played]
+            if resumed:
+                i0 = min((ref_of_played[j] for j in resumed), key=lambda i: (part.onsets[i], part.pitches[i]))
         pos = where(i0) if i0 is not None else {"measure": None, "beat": None, "measure_label": None}
         item = add(
             "hesitation", start, **pos, expected_pitch=None if i0 is None else int(part.pitches[i0]),
@@ -911,7 +1005,10 @@ def compare_notes(
     for i, j in same:
         pos = where(i)
         g = group_index.get(round(float(part.onsets[i]), 4))
-        expected = model.predict(float(part.onsets[i]), exclude_group=g, fallback=float(predicted[i]))
+        if i in alt_expected:
+            expected = float(alt_expected[i])
+        else:
+            expected = model.predict(float(part.onsets[i]), exclude_group=g, fallback=float(predicted[i]))
         residual = float(played_on[j] - expected)
         name = pitch_name(part.pitches[i])
         common = dict(**pos, expected_pitch=int(part.pitches[i]), played_pitch=int(played_pitch[j]),
