@@ -188,7 +188,7 @@ _FAMILY_PRESET: dict[str, str] = {
 }
 _ALIASES: dict[str, str] = {
     "sax": "saxophone", "altosax": "saxophone", "altosaxophone": "saxophone", "tenorsax": "tenor saxophone",
-    "grandpiano": "piano", "doublebass": "contrabass", "acousticguitar": "guitar", "frenchhorn": "horn",
+    "grandpiano": "piano", "clavinet": "clavi", "synthchoir": "synth voice", "doublebass": "contrabass", "acousticguitar": "guitar", "frenchhorn": "horn",
 }
 
 
