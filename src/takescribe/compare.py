@@ -655,6 +655,7 @@ class _Restart:
     abandoned: list  # played indices
     resumed_pairs: list  # (ref, played) of the later attempt to use as anchors
     dropped_pairs: list  # (ref, played) of the earlier attempt to drop from the anchors
+    voter_pairs: list  # (ref, played) of the run that repeats the part
     to_ref: int  # first reference note of the resumed attempt
     from_ref: int  # last reference note reached in the abandoned attempt
     from_time: float
@@ -670,6 +671,8 @@ def _find_restarts(
     expected0: np.ndarray,
     *,
     min_restart_notes: int,
+    ignore: set = frozenset(),
+    used_refs: set = frozenset(),
     vote_tolerance: float = 0.15,
     min_shift: float = 0.5,
 ) -> list[_Restart]:
@@ -679,6 +682,8 @@ def _find_restarts(
     # runs of unmatched played notes (in take order), tolerating one matched note inside
     runs, current, matched_streak = [], [], 0
     for j in order:
+        if j in ignore:
+            continue
         if j in matched_ref_of:
             matched_streak += 1
             if matched_streak >= 2 and current:
@@ -691,15 +696,16 @@ def _find_restarts(
         runs.append(current)
 
     restarts: list[_Restart] = []
-    used: set = set()
+    used: set = set(used_refs)
     for run in runs:
         if len(run) < min_restart_notes:
             continue
         candidates = []  # (j, i, shift)
         for j in run:
             for i in np.flatnonzero(part.pitches == played_pitch[j]):
-                partner_time = played_on[partner_of_ref[i]] if i in partner_of_ref else expected0[i]
-                shift = float(played_on[j] - partner_time)
+                if i not in partner_of_ref:
+                    continue  # a restart needs the other attempt in the take, not just a shifted run
+                shift = float(played_on[j] - played_on[partner_of_ref[i]])
                 if abs(shift) >= min_shift:
                     candidates.append((j, int(i), shift))
         if not candidates:
@@ -731,7 +737,7 @@ def _find_restarts(
             continue
         refs = [i for i, _ in voter_pairs]
         run_times = [played_on[j] for _, j in voter_pairs]
-        partner_times = [played_on[partner_of_ref[i]] if i in partner_of_ref else expected0[i] for i in refs]
+        partner_times = [played_on[partner_of_ref[i]] for i in refs]
         if best_shift < 0:  # the run came first: it is the abandoned attempt
             earlier_start, later_start = min(run_times), min(partner_times)
             resumed, dropped = [], []
@@ -750,6 +756,7 @@ def _find_restarts(
                 abandoned=abandoned,
                 resumed_pairs=resumed,
                 dropped_pairs=dropped,
+                voter_pairs=voter_pairs,
                 to_ref=int(to_ref),
                 from_ref=int(from_ref),
                 from_time=float(min(max(played_off[abandoned]), later_start)),
@@ -856,34 +863,39 @@ def compare_notes(
                            window=anchor_window, same_pitch=True)
     anchors = _uncross(anchors, expected0, played_on, key=lambda i, j: part.pitches[i])
 
-    # 2. restarts
-    restarts = _find_restarts(part, played_on, played_off, played_pitch, anchors, expected0, min_restart_notes=min_restart_notes)
+    # 2-3. restarts, then the local tempo and hesitations from the anchors; re-anchoring around
+    # the local-tempo prediction lets the anchors follow a take that drifts away from a coarse
+    # alignment, and a restart hidden by a coarse alignment shows up once the anchors settle
+    restarts: list[_Restart] = []
     abandoned_owner: dict = {}
-    for k, r in enumerate(restarts):
-        for j in r.abandoned:
-            abandoned_owner.setdefault(j, k)
-    dropped = {p for r in restarts for p in r.dropped_pairs}
-    anchors = [(i, j) for i, j in anchors if (i, j) not in dropped and j not in abandoned_owner]
-    anchored_refs = {i for i, _ in anchors}
-    anchors += [(i, j) for r in restarts for i, j in r.resumed_pairs if i not in anchored_refs]
-    # a segment starts just before the note the player went back to (group keys are rounded)
-    breaks = [float(part.onsets[r.to_ref]) - 1e-3 for r in restarts]
-
-    # 3. local tempo and hesitations, from the anchors; re-anchoring around the local-tempo
-    # prediction lets the anchors follow a take that drifts away from a coarse alignment
-    pool = np.array([j for j in range(n_played) if j not in abandoned_owner], dtype=int)
+    breaks: list[float] = []
     predicted = expected0
-    for _ in range(3):
-        model = _tempo_model(part.onsets, played_on, anchors, breaks=breaks, neighbours=neighbours,
-                             hesitation_threshold=hesitation_threshold, default_slope=default_slope)
-        predicted = np.array([model.predict(s, fallback=e) for s, e in zip(part.onsets, predicted)]) if n_ref else np.zeros(0)
-        pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
-        again = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
-                             window=anchor_window, same_pitch=True)
-        again = _uncross([(i, int(pool[j])) for i, j in again], predicted, played_on, key=lambda i, j: part.pitches[i])
-        if sorted(again) == sorted(anchors) or len(again) < len(anchors):
-            break
-        anchors = again
+    for _round in range(2):
+        found = _find_restarts(part, played_on, played_off, played_pitch, anchors, predicted,
+                               min_restart_notes=min_restart_notes, ignore=set(abandoned_owner),
+                               used_refs={i for r in restarts for i, _ in r.resumed_pairs + r.voter_pairs})
+        for r in found:
+            for j in r.abandoned:
+                abandoned_owner.setdefault(j, len(restarts))
+            restarts.append(r)
+        dropped = {p for r in found for p in r.dropped_pairs}
+        anchors = [(i, j) for i, j in anchors if (i, j) not in dropped and j not in abandoned_owner]
+        anchored_refs = {i for i, _ in anchors}
+        anchors += [(i, j) for r in found for i, j in r.resumed_pairs if i not in anchored_refs]
+        # a segment starts just before the note the player went back to (group keys are rounded)
+        breaks = [float(part.onsets[r.to_ref]) - 1e-3 for r in restarts]
+        pool = np.array([j for j in range(n_played) if j not in abandoned_owner], dtype=int)
+        for _ in range(3):
+            model = _tempo_model(part.onsets, played_on, anchors, breaks=breaks, neighbours=neighbours,
+                                 hesitation_threshold=hesitation_threshold, default_slope=default_slope)
+            predicted = np.array([model.predict(s, fallback=e) for s, e in zip(part.onsets, predicted)]) if n_ref else np.zeros(0)
+            pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
+            again = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
+                                 window=anchor_window, same_pitch=True)
+            again = _uncross([(i, int(pool[j])) for i, j in again], predicted, played_on, key=lambda i, j: part.pitches[i])
+            if sorted(again) == sorted(anchors) or len(again) < len(anchors):
+                break
+            anchors = again
 
     # 4. final matching around the local-tempo prediction
     pred_off = predicted + np.array([model.slope(s) for s in part.onsets]) * (part.offsets - part.onsets) if n_ref else np.zeros(0)
