@@ -12,7 +12,9 @@ contract: a parsed result, or a :class:`~takescribe.errors.InputError` subclass
 whose message names the file. Everything else is a failure; the script prints
 the count per outcome, one line per distinct failure (exception type and the
 innermost takescribe line) with a reproducing example, and exits with status 1
-if there was any failure. Readers not written yet are reported as missing.
+if there was any failure. An example running past ``--timeout`` seconds counts as
+a hang; the process's address space is capped (``--memory-limit-gb``) so a memory
+blow-up shows up as a MemoryError rather than taking the machine down. Readers not written yet are reported as missing.
 
 Mutated music21 parses are slow (about 40 ms each on a 2-core CPU): the
 MusicXML inputs take most of the time.
@@ -81,7 +83,7 @@ def _where(exc: BaseException) -> str:
     return f"{Path(frame.filename).name}:{frame.lineno}"
 
 
-def run(label, reader, file_name, generate, *, n_examples, rng, folder, show):
+def run(label, reader, file_name, generate, *, n_examples, rng, folder, show, timeout):
     counts: collections.Counter = collections.Counter()
     failures: dict[str, list[str]] = collections.defaultdict(list)
     started = time.perf_counter()
@@ -93,7 +95,8 @@ def run(label, reader, file_name, generate, *, n_examples, rng, folder, show):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             try:
-                reader(path)
+                with fuzz.time_limit(timeout):
+                    reader(path)
                 counts["ok"] += 1
             except TakescribeError as exc:
                 if not isinstance(exc, InputError):
@@ -105,7 +108,7 @@ def run(label, reader, file_name, generate, *, n_examples, rng, folder, show):
                     continue
                 counts["FAILED"] += 1
                 failures[key].append(f"{description}: {exc}")
-            except Exception as exc:  # the point of the run: anything untyped is a failure
+            except (Exception, fuzz.ReaderTimeout) as exc:  # the point of the run: anything untyped fails
                 counts["FAILED"] += 1
                 failures[f"{type(exc).__name__} at {_where(exc)}"].append(f"{description}: {str(exc)[:200]}")
     elapsed = time.perf_counter() - started
@@ -125,7 +128,20 @@ def main(argv=None) -> int:
     parser.add_argument("--only", nargs="*", default=None,
                         help="labels or label prefixes to run (audio, maps, midi, score, score/mxl...)")
     parser.add_argument("--show", type=int, default=2, help="examples printed per distinct failure")
+    parser.add_argument("--timeout", type=float, default=fuzz.READER_SECONDS,
+                        help="seconds one example may take before it counts as a hang (default %(default)s)")
+    parser.add_argument("--memory-limit-gb", type=float, default=6.0,
+                        help="address-space limit of this process, so a memory blow-up raises MemoryError "
+                             "instead of exhausting the machine (POSIX; 0: none; default %(default)s)")
     args = parser.parse_args(argv)
+    if args.memory_limit_gb > 0:
+        try:
+            import resource
+
+            limit = int(args.memory_limit_gb * 1024**3)
+            resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+        except (ImportError, ValueError, OSError) as exc:
+            print(f"memory limit not set ({exc})")
     rng = np.random.default_rng(args.seed)
     total_failed = 0
     with tempfile.TemporaryDirectory(prefix="takescribe-fuzz-") as tmp:
@@ -138,7 +154,7 @@ def main(argv=None) -> int:
                 print(f"{label:16s} missing: takescribe.{module}.{function} does not exist yet")
                 continue
             total_failed += run(label, reader, file_name, generate, n_examples=args.examples, rng=rng,
-                                folder=folder, show=args.show)
+                                folder=folder, show=args.show, timeout=args.timeout)
     print(f"total failures: {total_failed}")
     return 1 if total_failed else 0
 

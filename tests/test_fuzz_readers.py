@@ -4,7 +4,9 @@ Each reader gets random bytes and mutated valid files (truncations, byte flips,
 insertions, deletions, header damage) and must either return a result or raise a
 :class:`~takescribe.errors.TakescribeError` subclass; any other exception (IndexError,
 struct.error, UnicodeDecodeError, a libsndfile RuntimeError, ...) fails the test.
-Warnings are allowed. Readers that do not exist yet are skipped with the reason.
+Warnings are allowed. A reader that runs longer than :data:`READER_SECONDS` on one
+of these few-kB files fails too (a hang or a memory blow-up). Readers that do not
+exist yet are skipped with the reason.
 
 hypothesis runs derandomized (the same examples on every run) so CI is repeatable;
 ``benchmarks/fuzz_readers.py`` runs the same mutations many more times.
@@ -13,10 +15,12 @@ The seed files are of our own invention (short synthetic tones, a four-note tune
 
 from __future__ import annotations
 
+import contextlib
 import importlib
 import io
-import os
+import signal
 import tempfile
+import threading
 import warnings
 import zipfile
 from pathlib import Path
@@ -182,13 +186,39 @@ mutations_strategy = st.lists(
 )
 
 
+READER_SECONDS = 10.0  # a few-kB file that takes longer than this is a hang (or a memory blow-up)
+
+
+class ReaderTimeout(BaseException):
+    """A reader ran past :data:`READER_SECONDS` (BaseException: no ``except Exception`` may swallow it)."""
+
+
+@contextlib.contextmanager
+def time_limit(seconds: float):
+    """Interrupt the block after ``seconds`` (POSIX main thread only; elsewhere no limit)."""
+    if not hasattr(signal, "setitimer") or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def on_alarm(signum, frame):
+        raise ReaderTimeout(f"reader still running after {seconds} s")
+
+    previous = signal.signal(signal.SIGALRM, on_alarm)
+    signal.setitimer(signal.ITIMER_REAL, seconds)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, previous)
+
+
 def outcome(reader: Callable, path: Path) -> str:
     """Run ``reader(path)``: "ok" or the name of our typed error; anything else propagates.
 
     A typed error must be bad input (an :class:`InputError`, exit code 1) and its
     message must name the file, as the bad-input contract asks.
     """
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), time_limit(READER_SECONDS):
         warnings.simplefilter("ignore")
         try:
             reader(path)
