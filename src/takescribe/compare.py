@@ -71,7 +71,8 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
          "deviation": float | null,      # seconds (timing, duration, pause) or semitones
          "reference_index": int | null, "played_index": int | null,
          "linked_to": int | null,        # id of the hesitation/restart this belongs to
-         "from_time": float | null,      # restart only: where the left-off attempt falls silent
+         "from_time": float | null,      # restart only: where the left-off attempt stops (the
+                                         # end of its last note's written value, or its release)
          "to_time": float | null,        # restart only: first onset of the attempt that goes on
          "from_measure": int | null, "from_beat": float | null,      # restart only
          "to_measure": int | null, "to_beat": float | null,          # restart only
@@ -520,6 +521,73 @@ def _same_pitch_pairs(ref_on, ref_off, ref_pitch, played_on, played_off, played_
     return pairs
 
 
+def _recover_stretches(part, predicted, played_on, played_pitch, pool, anchors, *, min_notes: int, slope: float,
+                       vote_tolerance: float = 0.15) -> list:
+    """Anchors for stretches of the part that the alignment placed too far off.
+
+    A stretch of at least ``min_notes`` consecutive reference notes without anchors (an
+    unnoticed pause, a badly placed jump) is laid over the free played notes between the
+    anchors around it at the overall pace (``slope`` take seconds per score second); the one
+    time offset that lines up most of its notes with played notes of the same pitch places
+    it, and the notes that then line up become anchors. The alignment's own placement
+    inside the stretch is not used: it is what went wrong.
+    """
+    anchored_refs = {i for i, _ in anchors}
+    anchored_played = {j for _, j in anchors}
+    free = np.array([j for j in pool if j not in anchored_played], dtype=int)
+    if free.size == 0:
+        return []
+    anchor_s = np.array([part.onsets[i] for i, _ in anchors]) if anchors else np.zeros(0)
+    anchor_t = np.array([played_on[j] for _, j in anchors]) if anchors else np.zeros(0)
+    order = np.lexsort((part.pitches, part.onsets))
+    stretches, current = [], []
+    for i in order:
+        if i in anchored_refs:
+            if len(current) >= min_notes:
+                stretches.append(current)
+            current = []
+        else:
+            current.append(int(i))
+    if len(current) >= min_notes:
+        stretches.append(current)
+    found = []
+    taken: set = set()
+    for stretch in stretches:
+        s_first, s_last = part.onsets[stretch[0]], part.onsets[stretch[-1]]
+        before = anchor_t[anchor_s < s_first - 1e-6]
+        after = anchor_t[anchor_s > s_last + 1e-6]
+        lo = before.max() if before.size else -np.inf
+        hi = after.min() if after.size else np.inf
+        window = free[(played_on[free] > lo) & (played_on[free] < hi)]
+        candidates = []  # (ref, played, offset)
+        for i in stretch:
+            for j in window[played_pitch[window] == part.pitches[i]]:
+                if j not in taken:
+                    candidates.append((i, int(j), float(played_on[j] - slope * part.onsets[i])))
+        if len(candidates) < min_notes:
+            continue
+        offsets = np.array([c[2] for c in candidates])
+        best_count, best_offset = 0, 0.0
+        for c in offsets:
+            voters = {candidates[k][0] for k in np.flatnonzero(np.abs(offsets - c) <= vote_tolerance)}
+            if len(voters) > best_count:
+                best_count, best_offset = len(voters), float(c)
+        if best_count < max(min_notes, int(np.ceil(0.5 * len(stretch)))):
+            continue
+        pairs: dict = {}
+        for i, j, offset in candidates:
+            if abs(offset - best_offset) <= vote_tolerance:
+                if i not in pairs or abs(offset - best_offset) < abs(pairs[i][1] - best_offset):
+                    pairs[i] = (j, offset)
+        used_played: set = set()
+        for i, (j, _) in sorted(pairs.items(), key=lambda item: part.onsets[item[0]]):
+            if j not in used_played:
+                found.append((i, j))
+                used_played.add(j)
+        taken |= used_played
+    return found
+
+
 # --------------------------------------------------------------------------- tempo model
 
 
@@ -673,6 +741,7 @@ def _find_restarts(
     min_restart_notes: int,
     ignore: set = frozenset(),
     used_refs: set = frozenset(),
+    slope: float = 1.0,
     vote_tolerance: float = 0.15,
     min_shift: float = 0.5,
 ) -> list[_Restart]:
@@ -748,6 +817,11 @@ def _find_restarts(
         abandoned = [int(j) for j in np.flatnonzero((played_on >= earlier_start - 1e-6) & (played_on < later_start - 1e-6))]
         if not abandoned:
             continue
+        # where the left-off attempt stopped: the end of the written value of its last note,
+        # at the overall pace (a release just before the bar line is still "the end of the bar")
+        earlier_pairs = voter_pairs if best_shift < 0 else [(i, partner_of_ref[i]) for i in refs]
+        last_ref, last_played = max(earlier_pairs, key=lambda ij: played_on[ij[1]])
+        written_end = played_on[last_played] + slope * (part.offsets[last_ref] - part.onsets[last_ref])
         to_ref = min(refs, key=lambda i: (part.onsets[i], part.pitches[i]))
         from_ref = max(refs, key=lambda i: (part.onsets[i], -part.pitches[i]))
         used.update(refs)
@@ -759,7 +833,7 @@ def _find_restarts(
                 voter_pairs=voter_pairs,
                 to_ref=int(to_ref),
                 from_ref=int(from_ref),
-                from_time=float(min(max(played_off[abandoned]), later_start)),
+                from_time=float(min(max(written_end, max(played_off[abandoned])), later_start)),
                 to_time=float(later_start),
             )
         )
@@ -873,7 +947,8 @@ def compare_notes(
     for _round in range(2):
         found = _find_restarts(part, played_on, played_off, played_pitch, anchors, predicted,
                                min_restart_notes=min_restart_notes, ignore=set(abandoned_owner),
-                               used_refs={i for r in restarts for i, _ in r.resumed_pairs + r.voter_pairs})
+                               used_refs={i for r in restarts for i, _ in r.resumed_pairs + r.voter_pairs},
+                               slope=default_slope)
         for r in found:
             for j in r.abandoned:
                 abandoned_owner.setdefault(j, len(restarts))
@@ -893,6 +968,8 @@ def compare_notes(
             again = _match_notes(predicted, pred_off, part.pitches, played_on[pool], played_off[pool], played_pitch[pool],
                                  window=anchor_window, same_pitch=True)
             again = _uncross([(i, int(pool[j])) for i, j in again], predicted, played_on, key=lambda i, j: part.pitches[i])
+            again += _recover_stretches(part, predicted, played_on, played_pitch, pool, again,
+                                        min_notes=min_restart_notes, slope=model.default_slope)
             if sorted(again) == sorted(anchors) or len(again) < len(anchors):
                 break
             anchors = again
