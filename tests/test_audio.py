@@ -407,6 +407,23 @@ def test_stream_placeholder_data_size_is_accepted(tmp_path):
     np.testing.assert_allclose(y, ref, atol=1e-5)
 
 
+def test_damaged_mp3_is_refused_without_decoder_chatter(tmp_path, capfd):
+    # libsndfile hands MPEG data to mpg123, which prints resync notes on the C-level stderr;
+    # the command line promises a single line there, so they must not leak
+    rng = np.random.default_rng(8)
+    garbage = tmp_path / "garbage.wav"
+    garbage.write_bytes(b"\xff\xfb\x90\x00" + rng.integers(0, 256, 2000, dtype=np.uint8).tobytes())
+    with pytest.raises(AudioError, match="not a recognised audio format"):
+        load_audio(garbage)
+    mp3 = write(tmp_path / "take.mp3", chord(44100, 2.0), 44100, fmt="MP3")
+    data = bytearray(mp3.read_bytes())
+    data[len(data) // 2 : len(data) // 2 + 400] = bytes(400)
+    mp3.write_bytes(bytes(data))
+    with pytest.raises(AudioError, match=r"damaged or truncated MP3 file"):
+        load_audio(mp3)
+    assert capfd.readouterr().err == ""
+
+
 # ---------------------------------------------------------------------------
 # warnings: the signal is still returned
 

@@ -33,9 +33,11 @@ and a sample rate too low to hold the top of the piano.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import struct
+import sys
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -305,8 +307,8 @@ def load_audio(
 
     if stats.n_read < n_wanted:
         raise AudioError(
-            f"{path}: truncated {info.format} file: the header announces {n_wanted / native_sr:.2f} s "
-            f"but only {stats.n_read / native_sr:.2f} s could be read; copy or export the take again"
+            f"{path}: damaged or truncated {info.format} file: the header announces {n_wanted / native_sr:.2f} s "
+            f"but only {stats.n_read / native_sr:.2f} s could be decoded; copy or export the take again"
         )
     if stats.n_nonfinite:
         raise AudioError(
@@ -396,10 +398,43 @@ def _open(path: Path) -> sf.SoundFile:
     if problem:
         raise AudioError(f"{path}: {problem}")
     try:
-        handle = sf.SoundFile(path)
+        with _native_stderr_silenced(_looks_like_mpeg(head)):
+            handle = sf.SoundFile(path)
     except (sf.SoundFileError, RuntimeError, ValueError, TypeError, OSError, EOFError) as exc:
         raise AudioError(f"{path}: {_describe_unopenable(head, exc)}") from exc
     return handle
+
+
+def _looks_like_mpeg(head: bytes) -> bool:
+    """An ID3 tag or an MPEG audio frame sync (11 set bits): libsndfile will hand it to mpg123."""
+    return head.startswith(b"ID3") or (len(head) >= 2 and head[0] == 0xFF and head[1] & 0xE0 == 0xE0)
+
+
+@contextlib.contextmanager
+def _native_stderr_silenced(active: bool):
+    """Send file descriptor 2 to the null device while libsndfile's MP3 decoder runs.
+
+    mpg123 prints resync notes straight to the C-level stderr on damaged MP3 data;
+    they would break the one-line error contract of the command line. Only used
+    around MP3 decoding, whose own errors still reach us as exceptions.
+    """
+    if not active:
+        yield
+        return
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+        null = os.open(os.devnull, os.O_WRONLY)
+    except (OSError, ValueError, AttributeError):
+        yield
+        return
+    try:
+        os.dup2(null, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(null)
 
 
 def _known_audio_format(head: bytes) -> str | None:
@@ -416,7 +451,8 @@ def _describe_unopenable(head: bytes, exc: BaseException) -> str:
         return f"damaged or truncated {known} file ({detail}); copy or export the take again"
     if _looks_like_text(head):
         return "this is a text file, not audio; give a WAV/FLAC/OGG recording of the take"
-    return f"not a recognised audio format ({detail}); convert the take to WAV or FLAC"
+    # libsndfile's own wording here is misleading ("File does not exist or is not a regular file")
+    return "not a recognised audio format; convert the take to WAV or FLAC"
 
 
 # ---------------------------------------------------------------------------
@@ -565,25 +601,28 @@ def _read_resampled(
         filled += chunk.size
 
     try:
-        while n_read < n_wanted:
-            block = handle.read(min(frames_per_block, n_wanted - n_read), dtype="float32", always_2d=True)
-            if block.shape[0] == 0:
-                break
-            n_read += block.shape[0]
-            magnitude = np.abs(block)
-            finite = np.isfinite(magnitude)
-            n_bad = block.size - int(np.count_nonzero(finite))
-            if n_bad:
-                n_nonfinite += n_bad
-                magnitude[~finite] = 0.0
-                block[~np.isfinite(block)] = 0.0  # keep the resampler's state finite; the file is refused anyway
-            if magnitude.size:
-                peak = max(peak, float(magnitude.max()))
-            n_clipped += int(np.count_nonzero(magnitude >= clip_level))
-            mono = block[:, 0] if n_channels == 1 else block.mean(axis=1, dtype=np.float32)
-            append(mono if stream is None else stream.resample_chunk(mono, last=False))
-        if stream is not None:
-            append(stream.resample_chunk(np.zeros(0, dtype=np.float32), last=True))
+        with _native_stderr_silenced(info.format == "MP3"):
+            while n_read < n_wanted:
+                block = handle.read(min(frames_per_block, n_wanted - n_read), dtype="float32", always_2d=True)
+                if block.shape[0] == 0:
+                    break
+                n_read += block.shape[0]
+                magnitude = np.abs(block)
+                finite = np.isfinite(magnitude)
+                n_bad = block.size - int(np.count_nonzero(finite))
+                if n_bad:
+                    n_nonfinite += n_bad
+                    magnitude[~finite] = 0.0
+                    block[~np.isfinite(block)] = 0.0  # keep the resampler's state finite; the file is refused anyway
+                if magnitude.size:
+                    peak = max(peak, float(magnitude.max()))
+                n_clipped += int(np.count_nonzero(magnitude >= clip_level))
+                mono = block[:, 0] if n_channels == 1 else block.mean(axis=1, dtype=np.float32)
+                append(mono if stream is None else stream.resample_chunk(mono, last=False))
+            if stream is not None:
+                append(stream.resample_chunk(np.zeros(0, dtype=np.float32), last=True))
+    except AudioError:
+        raise
     except (sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
         detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
         raise AudioError(
