@@ -272,3 +272,19 @@ def test_deviation_take_note_counts(dev_index):
         assert takes["notes"]["notes_count"] == n - k["missed"] + k["extra"], piece
         # a replayed bar adds its notes again
         assert takes["pitch"]["notes_count"] > n, piece
+
+
+def test_scores_valid_against_musicxml_4_schema(index, dev_index, musicxml_xsd_dir):
+    from lxml import etree
+
+    # the schema's xml.xsd / xlink.xsd imports point at the local copies (see SOURCE.md there)
+    text = (musicxml_xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
+    for name in ("xml.xsd", "xlink.xsd"):
+        text = text.replace(f"http://www.musicxml.org/xsd/{name}", (musicxml_xsd_dir / name).as_uri())
+    schema = etree.XMLSchema(etree.fromstring(text.encode("utf-8"),
+                                              base_url=(musicxml_xsd_dir / "musicxml.xsd").as_uri()))
+    parser = etree.XMLParser(no_network=True, load_dtd=False, resolve_entities=False)
+    paths = {CORPUS / e["files"]["score"] for e in index} | {DEVIATIONS / e["files"]["score"] for e in dev_index}
+    for path in sorted(paths):
+        doc = etree.parse(str(path), parser)
+        assert schema.validate(doc), f"{path.name}: {schema.error_log.last_error}"
