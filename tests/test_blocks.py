@@ -1,0 +1,98 @@
+"""Blockwise transcription of long takes: the same notes as one pass over the whole take."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings as hsettings, strategies as st
+
+from takescribe.audio import load_audio
+from takescribe.blocks import block_layout, transcribe_long
+from takescribe.errors import InputError
+from takescribe.spectrogram import ANALYSIS_SR, HOP_LENGTH
+from takescribe.transcription import settings_for
+
+CORPUS = Path(__file__).resolve().parents[1] / "fixtures" / "corpus"
+FRAME = HOP_LENGTH / ANALYSIS_SR
+
+
+def _long_take(name: str, seconds: float) -> np.ndarray:
+    y, sr = load_audio(CORPUS / "tuning" / f"{name}.flac", sr=ANALYSIS_SR)
+    return np.tile(y, int(np.ceil(seconds * sr / len(y))))
+
+
+def _assert_same_notes(blocked, single):
+    # "same notes; onsets (and offsets) within one analysis frame"
+    assert len(blocked) == len(single)
+    assert [n.pitch for n in blocked] == [n.pitch for n in single]
+    onsets = np.array([[a.onset, b.onset] for a, b in zip(blocked, single)])
+    offsets = np.array([[a.offset, b.offset] for a, b in zip(blocked, single)])
+    assert np.max(np.abs(onsets[:, 0] - onsets[:, 1])) <= FRAME + 1e-9
+    assert np.max(np.abs(offsets[:, 0] - offsets[:, 1])) <= FRAME + 1e-9
+
+
+@pytest.mark.parametrize("name, program, seconds", [("piano_alberti", 0, 180.0), ("melody_flute_jig", 73, 75.0)])
+def test_blocks_equal_one_pass(name, program, seconds):
+    # A corpus piece repeated to a long take: blocks of 60 s (or 25 s) with 5 s of context must give
+    # the notes of a single block covering the whole take; fewer iterations keep the test fast
+    # (the equality does not depend on them).
+    y = _long_take(name, seconds)
+    quick = settings_for(program).__class__(**{**settings_for(program).__dict__, "n_iter": 12, "adapt_iter": 4})
+    block = 60.0 if seconds > 120 else 25.0
+    blocked = transcribe_long(y, ANALYSIS_SR, instrument=program, settings=quick, block_seconds=block)
+    single = transcribe_long(y, ANALYSIS_SR, instrument=program, settings=quick, block_seconds=1e6)
+    assert blocked.timings["n_blocks"] == int(np.ceil(len(y) / ANALYSIS_SR / block))
+    assert single.timings["n_blocks"] == 1
+    assert len(single.notes) > 0
+    _assert_same_notes(blocked.notes, single.notes)
+    # no note is duplicated at a block edge: (pitch, onset) pairs are unique
+    assert len({(n.pitch, round(n.onset, 4)) for n in blocked.notes}) == len(blocked.notes)
+
+
+@given(n_frames=st.integers(1, 5000), core=st.integers(1, 800), context=st.integers(0, 300))
+@hsettings(max_examples=200, deadline=None)
+def test_layout_tiles_the_take(n_frames, core, context):
+    # property: cores tile [0, n_frames) in order without gaps or overlaps, contexts stay inside the take
+    layout = block_layout(n_frames, core, context)
+    assert layout[0][1] == 0 and layout[-1][2] == n_frames
+    for (s0, c0, c1, s1), nxt in zip(layout, layout[1:] + [None]):
+        assert 0 <= s0 <= c0 < c1 <= s1 <= n_frames
+        assert c0 - s0 <= context and s1 - c1 <= context
+        if nxt is not None:
+            assert nxt[1] == c1
+
+
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [({"block_seconds": 0.0}, "block_seconds must be > 0"), ({"overlap_seconds": 1.0}, "overlap_seconds must be >= 2"),
+     ({"adapt_seconds": -1.0}, "adapt_seconds must be > 0")],
+)
+def test_bad_options_name_the_problem(kwargs, message):
+    with pytest.raises(InputError, match=message):
+        transcribe_long(np.zeros(ANALYSIS_SR, np.float32), ANALYSIS_SR, **kwargs)
+
+
+def test_stereo_is_refused():
+    with pytest.raises(InputError, match="mono"):
+        transcribe_long(np.zeros((2, ANALYSIS_SR), np.float32), ANALYSIS_SR)
+
+
+def test_silence_warns_and_gives_no_notes():
+    with pytest.warns(UserWarning, match="silent"):
+        result = transcribe_long(np.zeros(5 * ANALYSIS_SR, np.float32), ANALYSIS_SR, block_seconds=2.0,
+                                 overlap_seconds=2.0)
+    assert result.notes == []
+
+
+def test_a_note_across_a_block_edge_is_neither_split_nor_doubled():
+    # a synthetic 440 Hz tone (A4 = MIDI 69, ISO 16) from 1.0 to 4.0 s across a block edge at 2.0 s
+    sr = ANALYSIS_SR
+    t = np.arange(int(6.0 * sr)) / sr
+    tone = sum(0.3 / h * np.sin(2 * np.pi * 440.0 * h * t) for h in (1, 2, 3))
+    y = (tone * ((t >= 1.0) & (t < 4.0))).astype(np.float32)
+    result = transcribe_long(y, sr, instrument="flute", block_seconds=2.0, overlap_seconds=2.0)
+    assert [n.pitch for n in result.notes] == [69]
+    note = result.notes[0]
+    assert abs(note.onset - 1.0) < 0.1 and abs(note.offset - 4.0) < 0.15
