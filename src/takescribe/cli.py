@@ -98,6 +98,10 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--instrument", help="GM program number or name (default: the part's)")
     q.add_argument("-o", "--output", required=True, help="dictionary file to write (.npz)")
     _add_common(q)
+
+    p = sub.add_parser("demo", help="try takescribe on two bundled student takes (no recording needed)")
+    p.add_argument("-o", "--output", default="demo-output", help="folder for the demo reports (default demo-output)")
+    _add_common(p)
     return parser
 
 
@@ -135,6 +139,11 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
         learned = pipeline.learn_dictionary_file(args.recording, args.score, args.output, part=args.part,
                                                  instrument=args.instrument, force=args.force, progress=progress)
         print(f"wrote {args.output}: {learned.n_pitches} templates for {learned.instrument}")
+        return EXIT_OK
+    if args.command == "demo":
+        from . import demo
+
+        print(demo.format_demo_summary(demo.run_demo(args.output, force=args.force, progress=progress)))
         return EXIT_OK
     raise AssertionError(f"unhandled command {args.command}")
 
