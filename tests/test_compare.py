@@ -310,8 +310,8 @@ def test_restart_is_one_finding_with_linked_extras(alignment_follows):
     extras = [f for f in result.findings if f.kind == "extra"]
     assert all(f.linked_to == r.id for f in extras)
     assert (r.from_measure, r.to_measure, r.to_beat) == (6, 5, 1.0)
-    # from: the left-off attempt falls silent (the last note released); to: the first note again
-    assert r.from_time == pytest.approx(s_stop + 0.9 * (ref.notes[stop_k].offset - s_stop), abs=0.01)
+    # from: the end of the written value of the left-off attempt's last note; to: the first note again
+    assert r.from_time == pytest.approx(ref.notes[stop_k].offset, abs=0.01)
     assert r.to_time == pytest.approx(s_back + shift, abs=0.01)
     assert set(result.note_status) == {"played"}
 

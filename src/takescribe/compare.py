@@ -817,13 +817,26 @@ def _find_restarts(
         abandoned = [int(j) for j in np.flatnonzero((played_on >= earlier_start - 1e-6) & (played_on < later_start - 1e-6))]
         if not abandoned:
             continue
-        # where the left-off attempt stopped: the end of the written value of its last note,
-        # at the overall pace (a release just before the bar line is still "the end of the bar")
-        earlier_pairs = voter_pairs if best_shift < 0 else [(i, partner_of_ref[i]) for i in refs]
-        last_ref, last_played = max(earlier_pairs, key=lambda ij: played_on[ij[1]])
-        written_end = played_on[last_played] + slope * (part.offsets[last_ref] - part.onsets[last_ref])
         to_ref = min(refs, key=lambda i: (part.onsets[i], part.pitches[i]))
         from_ref = max(refs, key=lambda i: (part.onsets[i], -part.pitches[i]))
+        # a left-off attempt holds the repeated stretch (and perhaps the note stumbled on), not
+        # notes matched further on: otherwise this is a repeated motif, not a restart
+        beyond = [j for j in abandoned if j in matched_ref_of and part.onsets[matched_ref_of[j]] > part.onsets[from_ref] + 1e-6]
+        if len(beyond) > 1:
+            continue
+        # where the left-off attempt stopped: the end of the written value of its last note,
+        # at the overall pace (a release just before the bar line is still "the end of the bar")
+        ref_of_played = {**matched_ref_of, **{j: i for i, j in voter_pairs}}
+        last_played = max(abandoned, key=lambda j: (played_on[j], played_off[j]))
+        last_ref = ref_of_played.get(last_played)
+        if last_ref is None:
+            # the note the player stopped on: its pitch at or just after the last repeated note
+            after = [i for i in np.flatnonzero(part.pitches == played_pitch[last_played])
+                     if part.onsets[from_ref] - 1e-6 <= part.onsets[i] <= part.onsets[from_ref] + 4.0]
+            last_ref = min(after, key=lambda i: part.onsets[i]) if after else None
+        written_end = played_off[last_played]
+        if last_ref is not None:
+            written_end = played_on[last_played] + slope * (part.offsets[last_ref] - part.onsets[last_ref])
         used.update(refs)
         restarts.append(
             _Restart(
@@ -1216,11 +1229,12 @@ def _bar(pos: dict, *, lower: bool = False) -> str:
 
 
 def _overall_slope(score_on: np.ndarray, take_on: np.ndarray) -> float:
-    if len(score_on) >= 2 and np.ptp(score_on) > 0:
-        slope = float(np.ptp(take_on) / np.ptp(score_on)) if np.ptp(take_on) > 0 else 1.0
-        if np.isfinite(slope) and slope > 0:
-            return slope
-    return 1.0
+    """Median take seconds per score second between consecutive onsets (pauses and jumps aside)."""
+    order = np.argsort(score_on, kind="stable")
+    ds, dt = np.diff(score_on[order]), np.diff(take_on[order])
+    ratios = dt[ds > 1e-6] / ds[ds > 1e-6]
+    ratios = ratios[np.isfinite(ratios) & (ratios > 0)]
+    return float(np.median(ratios)) if ratios.size else 1.0
 
 
 def _take_to_score(model: _TempoModel, t: float, part: _Part) -> float:
