@@ -18,6 +18,7 @@ import numpy as np
 from .align import MISMATCH_CONFIDENCE, AlignmentWarning, align_reference
 from .compare import compare_notes
 from .audio import load_audio
+from .blocks import LONG_TAKE_SECONDS, transcribe_long
 from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, load_dictionary, save_dictionary
 from .errors import InputError, ScoreError
 from .evaluate import evaluate_notes
@@ -112,9 +113,12 @@ def transcribe_take(
     if instrument is None:
         program = getattr(reference, "midi_program", None)
         instrument = program if program is not None else "piano"
+    # long takes go block by block so memory stays flat (see takescribe.blocks)
+    long_take = len(y) > LONG_TAKE_SECONDS * sr
+    blind = transcribe_long if long_take else transcribe
     if reference is None:
-        return transcribe(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
-                          progress=progress), None
+        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+                     progress=progress), None
     if alignment is None:
         if progress:
             progress("aligning the part with the take")
@@ -123,10 +127,14 @@ def transcribe_take(
         warnings.warn(
             f"the take does not seem to match the part (alignment confidence {alignment.confidence:.2f});"
             " transcribing without the part", AlignmentWarning, stacklevel=2)
-        return transcribe(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
-                          progress=progress), alignment
+        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+                     progress=progress), alignment
     if progress:
         progress("score-informed factorization")
+    if long_take:
+        result = transcribe_long(y, sr, reference=reference, alignment=alignment, instrument=instrument,
+                                 dictionary=dictionary, settings=settings, progress=progress)
+        return result, alignment
     result = informed_transcription(y, sr, reference, alignment=alignment, instrument=instrument,
                                     dictionary=dictionary, settings=settings, progress=progress)
     return result, alignment
