@@ -8,7 +8,6 @@ elements score-partwise / score-timewise).
 
 from __future__ import annotations
 
-import io
 import tracemalloc
 import zipfile
 

@@ -76,10 +76,13 @@ subsequence DTW). Springer.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.ndimage import convolve1d, maximum_filter1d
+import scipy.fft
+import scipy.signal
+import scipy.sparse
+from scipy.ndimage import maximum_filter1d
 
 from .audio import validate_audio
 from .score import Reference, validate_reference
@@ -99,7 +102,7 @@ MISMATCH_CONFIDENCE = 0.3
 MIN_PAUSE_SECONDS = 0.5
 PAUSE_COST = 0.1
 JUMP_SECONDS = 0.5
-UNALIGNED_COST = 0.5
+UNALIGNED_COST = 1.5
 SKIP_COST = 1.2
 LOWEST_PITCH, HIGHEST_PITCH = 21, 108
 _SILENCE_DB = -40.0
@@ -108,6 +111,8 @@ _ONSET_DECAY_SECONDS = 0.2
 _LOCAL_NORM_SECONDS = 1.0
 _ENVELOPE_SECONDS = 1.5
 _LANDING_SECONDS = 0.1
+_CONFIDENCE_FRAMES = 1000
+_CONFIDENCE_GAIN = 2.0
 
 
 class AlignmentWarning(UserWarning):
@@ -195,8 +200,8 @@ class Alignment:
             if s[k] < low - 1e-12:
                 keep[k] = True
                 low = s[k]
-            elif s[k] == low:
-                keep[k] = True  # same score time reached earlier in a pause: the first arrival wins
+            elif s[k] == low and keep[k + 1]:
+                keep[k] = True  # the same score time earlier in one pause: the first arrival wins
         ks = s[keep]
         kt = t[keep]
         # keep the earliest take time per score time (arrival, not departure)
@@ -268,59 +273,74 @@ def _semitone_filterbank(sr: int, n_fft: int) -> np.ndarray:
     return fb.astype(np.float32)
 
 
-def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block: int = 1024) -> np.ndarray:
+def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block: int = 2048) -> np.ndarray:
     """Power per MIDI pitch (n_pitches, n_frames), centred frames, computed in blocks to bound memory."""
     fb = _semitone_filterbank(sr, n_fft)
+    used = int(np.flatnonzero(fb.any(axis=0)).max()) + 1  # bins above the highest pitch are not needed
+    fb_sparse = scipy.sparse.csr_matrix(fb[:, :used])
     window = np.hanning(n_fft + 1)[:-1].astype(np.float32)
-    y_pad = np.pad(y.astype(np.float32, copy=False), n_fft // 2)
     n_frames = 1 + len(y) // hop_length
     need = (n_frames - 1) * hop_length + n_fft
-    if y_pad.size < need:
-        y_pad = np.pad(y_pad, (0, need - y_pad.size))
+    y_pad = np.zeros(max(need, len(y) + n_fft), dtype=np.float32)
+    y_pad[n_fft // 2:n_fft // 2 + len(y)] = y
+    frames_all = np.lib.stride_tricks.sliding_window_view(y_pad, n_fft)[::hop_length][:n_frames]
     out = np.empty((fb.shape[0], n_frames), dtype=np.float32)
     for start in range(0, n_frames, block):
         stop = min(start + block, n_frames)
-        idx = np.arange(start, stop)[:, None] * hop_length + np.arange(n_fft)[None, :]
-        frames = y_pad[idx] * window
-        spec = np.fft.rfft(frames, axis=1)
-        power = (spec.real**2 + spec.imag**2).astype(np.float32)
-        out[:, start:stop] = fb @ power.T
+        spec = scipy.fft.rfft(frames_all[start:stop] * window, axis=1, workers=-1)[:, :used]
+        power = np.square(spec.real) + np.square(spec.imag)
+        out[:, start:stop] = (fb_sparse @ power.T).astype(np.float32)
     return out
 
 
-def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: int, n_ffts: tuple[int, ...],
-                       *, transpose: int = 0) -> list[np.ndarray]:
-    """Pitch energy of the part from harmonic templates, one array per analysis window length."""
+def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: int,
+                      n_ffts: tuple[int, ...]) -> list[np.ndarray]:
+    """Pitch energy of the part from harmonic templates, one array per analysis window length.
+
+    Each note is an envelope (exponential decay while held, fast release after) on a grid
+    four times finer than the frames, spread over the pitches of its first eight partials;
+    the sum is smoothed with the squared analysis window (the time response of a power
+    spectrogram) and sampled at the frame centres.
+    """
     sub = 4
     dt = hop_length / sr / sub
     n_sub = n_frames * sub
-    pitches = np.arange(LOWEST_PITCH, HIGHEST_PITCH + 1)
-    energy = np.zeros((pitches.size, n_sub), dtype=np.float32)
+    n_pitches = HIGHEST_PITCH - LOWEST_PITCH + 1
     release = 0.1
-    for note in reference.notes:
+    harmonics = np.arange(1, 9)
+    rows, cols, vals = [], [], []
+    weights = np.zeros((len(reference.notes), n_pitches), dtype=np.float32)
+    for k, note in enumerate(reference.notes):
         start = int(round(note.onset / dt))
         stop = min(int(round((note.offset + 3 * release) / dt)), n_sub)
         if start >= n_sub or stop <= start:
             continue
         t = np.arange(stop - start) * dt
-        env = np.exp(-t / _ENVELOPE_SECONDS)
         held = note.offset - note.onset
-        env = np.where(t > held, env * np.exp(-(t - held) / release), env).astype(np.float32)
-        for h in range(1, 9):
-            p = note.pitch + transpose + 12.0 * np.log2(h)
-            k = p - LOWEST_PITCH
-            k0 = int(np.floor(k))
-            frac = k - k0
-            for kk, w in ((k0, 1.0 - frac), (k0 + 1, frac)):
-                if 0 <= kk < pitches.size and w > 0:
-                    energy[kk, start:stop] += np.float32(w / h) * env
+        env = np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)
+        rows.append(np.full(stop - start, k))
+        cols.append(np.arange(start, stop))
+        vals.append(env)
+        position = note.pitch + 12.0 * np.log2(harmonics) - LOWEST_PITCH
+        low = np.floor(position).astype(int)
+        frac = position - low
+        for bins, share in ((low, 1.0 - frac), (low + 1, frac)):
+            ok = (bins >= 0) & (bins < n_pitches)
+            np.add.at(weights[k], bins[ok], (share / harmonics)[ok])
+    if rows:
+        envelopes = scipy.sparse.csr_matrix(
+            (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+            shape=(len(reference.notes), n_sub), dtype=np.float32)
+        energy = np.asarray((envelopes.T @ weights).T, dtype=np.float32)
+    else:
+        energy = np.zeros((n_pitches, n_sub), dtype=np.float32)
     out = []
     for n_fft in n_ffts:
         taps = max(int(round(n_fft / (hop_length / sub))), 1)
         kernel = np.hanning(taps + 2)[1:-1] ** 2
         kernel /= kernel.sum()
-        smooth = convolve1d(energy, kernel.astype(np.float32), axis=1, mode="constant")
-        out.append(np.ascontiguousarray(smooth[:, ::sub][:, :n_frames]))
+        smooth = scipy.signal.oaconvolve(energy, kernel[None, :].astype(np.float32), mode="same", axes=1)
+        out.append(np.ascontiguousarray(np.maximum(smooth[:, ::sub][:, :n_frames], 0.0), dtype=np.float32))
     return out
 
 
@@ -345,7 +365,7 @@ def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, fram
     if ref_o <= 0:
         ref_o = 1.0
     logo = np.log1p(_COMPRESSION * energy_onset / ref_o)
-    rise = np.maximum(0.0, np.diff(logo, axis=1, prepend=logo[:, :1]))
+    rise = np.maximum(0.0, np.diff(logo, axis=1, prepend=0.0))  # sound at frame 0 is an onset
     onset = np.zeros((12, n_frames), dtype=np.float32)
     for c in range(12):
         onset[c] = rise[(np.arange(rise.shape[0]) + LOWEST_PITCH) % 12 == c].sum(axis=0)
@@ -374,14 +394,13 @@ def take_features(y: np.ndarray, sr: int, *, hop_length: int | None = None) -> t
     return _chroma_and_onsets(e_chroma, e_onset, sr / hop_length)
 
 
-def reference_features(reference: Reference, sr: int, *, hop_length: int | None = None,
-                       transpose: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def reference_features(reference: Reference, sr: int, *,
+                       hop_length: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The same features as :func:`take_features`, rendered from the part's notes at the written tempo."""
     hop_length = hop_length or _default_hop(sr)
     end = max(n.offset for n in reference.notes) + 0.3
     n_frames = int(np.ceil(end * sr / hop_length)) + 1
-    e_chroma, e_onset = _render_reference(reference, sr, hop_length, n_frames, (8 * hop_length, 4 * hop_length),
-                                          transpose=transpose)
+    e_chroma, e_onset = _render_reference(reference, sr, hop_length, n_frames, (8 * hop_length, 4 * hop_length))
     return _chroma_and_onsets(e_chroma, e_onset, sr / hop_length)
 
 
@@ -402,94 +421,120 @@ def _pool(features: np.ndarray, factor: int, *, how: str) -> np.ndarray:
     return pooled / np.maximum(np.linalg.norm(pooled, axis=1, keepdims=True), 1e-12)
 
 
+def _landing_cost(score_onset: np.ndarray, jump_penalty: float) -> np.ndarray:
+    """Extra jump cost per score frame: none on a note onset, half the jump penalty elsewhere.
+
+    A player who goes back starts again on a note, so a jump should land on an onset.
+    """
+    norm = np.linalg.norm(score_onset, axis=1)
+    rise = np.clip(np.diff(norm, prepend=0.0), 0.0, None)
+    rise = maximum_filter1d(rise, size=3) / max(float(rise.max()), 1e-12)
+    return 0.5 * jump_penalty * (1.0 - np.clip(rise * 2.0, 0.0, 1.0))
+
+
 def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, hi, *, frame_rate: float,
-         onset_weight: float = 1.0) -> tuple[np.ndarray, np.ndarray, float]:
+         onset_weight: float = 1.0, block: int = 256, allow_jump: np.ndarray | None = None,
+         allow_end: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, float]:
     """Banded DTW with pauses, jumps back and free ends; returns (rows, cols, total cost).
 
-    ``lo[j]:hi[j]`` are the score rows allowed at take column ``j``.
+    ``lo[j]:hi[j]`` are the score rows allowed at take column ``j``; ``allow_jump[j]`` and
+    ``allow_end[j]`` (default everywhere) say where a jump back may arrive and where the
+    path may end (the fine pass allows them only near the coarse path's). Costs are
+    computed a block of columns at a time (one matrix product per block), so
+    memory stays proportional to the band.
     """
     n_rows = score_chroma.shape[0]
     n_cols = take_chroma.shape[0]
-    inf = np.float64(np.inf)
+    inf = np.inf
     jump_penalty = JUMP_SECONDS * frame_rate
-    pre = np.concatenate([[0.0], np.cumsum(UNALIGNED_COST * take_sounding)[:-1]])
-    post = (UNALIGNED_COST * take_sounding)[::-1].cumsum()[::-1] - UNALIGNED_COST * take_sounding
+    sounding = np.asarray(take_sounding, dtype=float)
+    pre = np.concatenate([[0.0], np.cumsum(UNALIGNED_COST * sounding)[:-1]])
+    post = (UNALIGNED_COST * sounding)[::-1].cumsum()[::-1] - UNALIGNED_COST * sounding
     skip_before = SKIP_COST * np.arange(n_rows, dtype=float)
     skip_after = SKIP_COST * (n_rows - 1 - np.arange(n_rows, dtype=float))
-    so_sq = (score_onset.astype(np.float64) ** 2).sum(axis=1)
+    s_chroma = score_chroma.astype(np.float64)
+    s_onset = score_onset.astype(np.float64)
+    so_sq = (s_onset**2).sum(axis=1)
+    landing = _landing_cost(s_onset, jump_penalty)
 
     pad = 2
     prev1 = np.full(n_rows + pad, inf)
     prev2 = np.full(n_rows + pad, inf)
-    cur = np.full(n_rows + pad, inf)
     band1 = (0, 0)
     band2 = (0, 0)
     codes: list[np.ndarray] = []
-    sources: list[np.ndarray | None] = []
+    sources: dict[int, np.ndarray] = {}
     best_end = (inf, -1, -1)
+    cands = np.empty((6, n_rows))
+    positions = np.arange(n_rows)
+    if allow_jump is None:
+        allow_jump = np.ones(n_cols, dtype=bool)
+    if allow_end is None:
+        allow_end = np.ones(n_cols, dtype=bool)
+    block_cost = None
+    block_lo = 0
     for j in range(n_cols):
+        if j % block == 0:
+            stop = min(j + block, n_cols)
+            block_lo = int(lo[j:stop].min())
+            block_hi = int(hi[j:stop].max())
+            tc = take_chroma[j:stop].astype(np.float64)
+            to = take_onset[j:stop].astype(np.float64)
+            cross = s_onset[block_lo:block_hi] @ to.T
+            dist = so_sq[block_lo:block_hi, None] + (to**2).sum(axis=1)[None, :] - 2.0 * cross
+            block_cost = (1.0 - s_chroma[block_lo:block_hi] @ tc.T) + onset_weight * np.sqrt(np.maximum(dist, 0.0))
+            block_cost = np.ascontiguousarray(block_cost.T)
         l, h = int(lo[j]), int(hi[j])
-        lc = l
-        sc = score_chroma[lc:h]
-        cost = 1.0 - sc @ take_chroma[j].astype(np.float64)
-        t_on = take_onset[j].astype(np.float64)
-        d2 = so_sq[lc:h] + t_on @ t_on - 2.0 * (score_onset[lc:h] @ t_on)
-        cost = cost + onset_weight * np.sqrt(np.maximum(d2, 0.0))
-        c = cost[l - lc:]
-        rows = np.arange(l, h)
-        idx = rows + pad
-        best = pre[j] + skip_before[l:h] + c
-        code = np.full(h - l, _START, dtype=np.int8)
-        src = None
+        n = h - l
+        c = block_cost[j % block, l - block_lo:h - block_lo]
+        cand = cands[:, :n]
+        np.add(pre[j] + skip_before[l:h], c, out=cand[_START])
+        if j < 2:
+            cand[_DIAG:] = inf
         if j >= 1:
-            cand = prev1[idx - 1] + c
-            better = cand < best
-            best = np.where(better, cand, best)
-            code[better] = _DIAG
-            cand = prev1[idx - 2] + c
-            better = cand < best
-            best = np.where(better, cand, best)
-            code[better] = _FAST
-            cand = prev1[idx] + c + PAUSE_COST
-            better = cand < best
-            best = np.where(better, cand, best)
-            code[better] = _PAUSE
+            np.add(prev1[l + pad - 1:h + pad - 1], c, out=cand[_DIAG])
+            np.add(prev1[l + pad - 2:h + pad - 2], c, out=cand[_FAST])
+            np.add(prev1[l + pad:h + pad], c + PAUSE_COST, out=cand[_PAUSE])
             lp, hp = band1
-            if hp > lp:
+            if hp > lp and allow_jump[j]:
                 vals = prev1[lp + pad:hp + pad]
                 rev = vals[::-1]
                 acc = np.minimum.accumulate(rev)
-                marks = np.where(rev <= acc, np.arange(rev.size), 0)
-                arg_rev = np.maximum.accumulate(marks)
-                suffix_min = acc[::-1]
-                suffix_arg = (rev.size - 1 - arg_rev)[::-1] + lp
-                q = rows + 1 - lp
+                q = np.clip(np.arange(l + 1, h + 1) - lp, 0, None)
                 valid = q < rev.size
-                qc = np.clip(q, 0, rev.size - 1)
-                cand = np.where(valid, suffix_min[qc], inf) + jump_penalty + c
-                better = cand < best
-                if better.any():
-                    best = np.where(better, cand, best)
-                    code[better] = _JUMP
-                    src = np.where(better, suffix_arg[qc], -1).astype(np.int32)
+                suffix_min = acc[::-1]
+                qc = np.minimum(q, rev.size - 1)
+                cand[_JUMP] = np.where(valid, suffix_min[qc], inf) + (jump_penalty + c) + landing[l:h]
+            else:
+                cand[_JUMP] = inf
         if j >= 2:
-            cand = prev2[idx - 1] + 2.0 * c
-            better = cand < best
-            best = np.where(better, cand, best)
-            code[better] = _SLOW
-        # roll the column buffers, clearing only the band that was written
+            cand[_SLOW] = prev2[l + pad - 1:h + pad - 1] + 2.0 * c
+        code = np.argmin(cand, axis=0).astype(np.int8)
+        best = cand[code, positions[:n]]
+        if j >= 1 and band1[1] > band1[0] and allow_jump[j]:
+            jumped = code == _JUMP
+            if jumped.any():
+                lp, hp = band1
+                vals = prev1[lp + pad:hp + pad]
+                rev = vals[::-1]
+                acc = np.minimum.accumulate(rev)
+                arg_rev = np.maximum.accumulate(np.where(rev == acc, np.arange(rev.size), 0))
+                suffix_arg = (rev.size - 1 - arg_rev)[::-1]
+                rows_j = np.flatnonzero(jumped) + l
+                q = np.clip(rows_j + 1 - lp, 0, rev.size - 1)
+                sources[j] = np.stack([rows_j, lp + suffix_arg[q]])
+        # roll the column buffers, clearing only the band that was written two columns ago
         lp2, hp2 = band2
         prev2[lp2 + pad:hp2 + pad] = inf
-        prev2, prev1, cur = prev1, cur, prev2
+        prev2, prev1 = prev1, prev2
         band2, band1 = band1, (l, h)
         prev1[l + pad:h + pad] = best
         codes.append(code)
-        sources.append(src)
-        end_cost = best + skip_after[l:h] + post[j]
-        k = int(np.argmin(end_cost))
-        if end_cost[k] < best_end[0]:
-            best_end = (float(end_cost[k]), l + k, j)
-        # prev2 now holds garbage from two columns ago only inside band2, cleared next time
+        if allow_end[j]:
+            end_cost = best + skip_after[l:h] + post[j]
+            k = int(np.argmin(end_cost))
+            if end_cost[k] < best_end[0]:
+                best_end = (float(end_cost[k]), l + k, j)
     total, i, j = best_end
     if not np.isfinite(total):
         return np.zeros(0, dtype=int), np.zeros(0, dtype=int), float("inf")
@@ -497,8 +542,7 @@ def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, 
     while True:
         rows_out.append(i)
         cols_out.append(j)
-        l = int(lo[j])
-        code = codes[j][i - l]
+        code = codes[j][i - int(lo[j])]
         if code == _START:
             break
         if code == _DIAG:
@@ -510,7 +554,8 @@ def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, 
         elif code == _PAUSE:
             j = j - 1
         else:
-            i, j = int(sources[j][i - l]), j - 1
+            table = sources[j]
+            i, j = int(table[1][np.searchsorted(table[0], i)]), j - 1
     return np.array(rows_out[::-1]), np.array(cols_out[::-1]), total
 
 
@@ -550,6 +595,42 @@ def _path_similarity(score_chroma, take_chroma, rows, cols) -> float:
     if rows.size == 0:
         return 0.0
     return float(np.mean(np.sum(score_chroma[rows] * take_chroma[cols], axis=1)))
+
+
+def _confidence(similarity: float, null_similarity: float) -> float:
+    """Map the path similarity and the best transposed similarity to 0..1.
+
+    ``(s - s_null) / (1 - s_null)`` is the share of the distance to a perfect match that the
+    true part gains over the best wrong transposition; :data:`_CONFIDENCE_GAIN` scales it so
+    that a clear match saturates at 1.
+    """
+    gain = (similarity - null_similarity) / max(1.0 - null_similarity, 1e-6)
+    return float(np.clip(gain * _CONFIDENCE_GAIN, 0.0, 1.0))
+
+
+def _pauses_between_onsets(alignment: "Alignment", onsets: np.ndarray) -> list[AlignmentSegment]:
+    """Pauses: a gap between successive score onsets that lasts at least MIN_PAUSE_SECONDS longer in
+    the take than the neighbouring gaps' tempo predicts (the score stands still, then resumes)."""
+    groups = np.unique(np.round(onsets, 4))
+    if groups.size < 3:
+        return []
+    take = np.asarray(alignment.score_to_take(groups))
+    d_score = np.diff(groups)
+    d_take = np.diff(take)
+    ratio = d_take / np.maximum(d_score, 1e-9)
+    jumps = [x.take_start for x in alignment.segments if x.kind == "jump_back"]
+    out = []
+    for k in range(d_score.size):
+        if any(take[k] - 1e-9 <= t_jump <= take[k + 1] + 1e-9 for t_jump in jumps):
+            continue  # the gap straddles a restart: not a pause
+
+        neighbours = np.r_[ratio[max(0, k - 4):k], ratio[k + 1:k + 5]]
+        local = float(np.median(neighbours)) if neighbours.size else alignment.overall_ratio
+        excess = d_take[k] - local * d_score[k]
+        if excess >= MIN_PAUSE_SECONDS:
+            out.append(AlignmentSegment("pause", float(take[k + 1] - excess), float(take[k + 1]),
+                                        float(groups[k + 1]), float(groups[k + 1])))
+    return out
 
 
 def _segments(rows: np.ndarray, cols: np.ndarray, frame_seconds: float) -> tuple[AlignmentSegment, ...]:
@@ -644,24 +725,44 @@ def align_reference(
     s_chroma, s_onset, _ = reference_features(reference, sr, hop_length=hop_length)
     n_rows, n_cols = s_chroma.shape[0], t_chroma.shape[0]
 
-    def coarse_path(score_chroma, score_onset):
-        sc, so = _pool(score_chroma, coarse_factor, how="sum"), _pool(score_onset, coarse_factor, how="max")
-        tc, to = _pool(t_chroma, coarse_factor, how="sum"), _pool(t_onset, coarse_factor, how="max")
-        ts = _pool(t_sounding[:, None].astype(float), coarse_factor, how="max")[:, 0]
+    def pooled_path(factor, score_chroma, score_onset, take):
+        sc, so = _pool(score_chroma, factor, how="sum"), _pool(score_onset, factor, how="max")
+        tc, to, ts = take
         m_rows, m_cols = sc.shape[0], tc.shape[0]
         rows, cols, _ = _dtw(sc, so, tc, to, ts, np.zeros(m_cols, dtype=int), np.full(m_cols, m_rows),
-                             frame_rate=frame_rate / coarse_factor, onset_weight=onset_weight)
+                             frame_rate=frame_rate / factor, onset_weight=onset_weight)
         return rows, cols, _path_similarity(sc, tc, rows, cols)
 
-    rows_c, cols_c, sim_coarse = coarse_path(s_chroma, s_onset)
-    null_chroma, null_onset, _ = reference_features(reference, sr, hop_length=hop_length, transpose=6)
-    _, _, sim_null = coarse_path(null_chroma, null_onset)
+    def pooled_take(factor):
+        return (_pool(t_chroma, factor, how="sum"), _pool(t_onset, factor, how="max"),
+                _pool(t_sounding[:, None].astype(float), factor, how="max")[:, 0])
+
+    coarse_take = pooled_take(coarse_factor)
+    rows_c, cols_c, sim_coarse = pooled_path(coarse_factor, s_chroma, s_onset, coarse_take)
+
+    # confidence: the part against itself transposed by 1..11 semitones (a rolled chroma is an
+    # exact transposition), each aligned by the same programme on frames of at most
+    # _CONFIDENCE_FRAMES per take so that the twelve passes stay cheap
+    factor = max(coarse_factor, int(np.ceil(n_cols / _CONFIDENCE_FRAMES)))
+    conf_take = coarse_take if factor == coarse_factor else pooled_take(factor)
+    sims = [sim_coarse if factor == coarse_factor else pooled_path(factor, s_chroma, s_onset, conf_take)[2]]
+    for k in range(1, 12):
+        sims.append(pooled_path(factor, np.roll(s_chroma, k, axis=1), np.roll(s_onset, k, axis=1), conf_take)[2])
+    similarity, null_similarity = float(sims[0]), float(max(sims[1:]))
 
     if rows_c.size >= 2:
         radius = int(round(band_radius * frame_rate))
         lo, hi = _band_from_path(rows_c, cols_c, coarse_factor, n_rows, n_cols, radius)
+        # at the full frame rate, jumps and the end are searched only near the coarse path's
+        near = np.zeros(-(-n_cols // coarse_factor), dtype=bool)
+        for c in np.r_[cols_c[1:][np.diff(rows_c) < 0], cols_c[-1]]:
+            near[max(c - 2, 0):c + 3] = True
+        near_fine = near[np.arange(n_cols) // coarse_factor]
+        near_end = np.zeros_like(near)
+        near_end[max(cols_c[-1] - 2, 0):] = True
         rows, cols, _ = _dtw(s_chroma, s_onset, t_chroma, t_onset, t_sounding.astype(float), lo, hi,
-                             frame_rate=frame_rate, onset_weight=onset_weight)
+                             frame_rate=frame_rate, onset_weight=onset_weight, allow_jump=near_fine,
+                             allow_end=near_end[np.arange(n_cols) // coarse_factor])
     else:
         rows, cols = rows_c, cols_c
     if rows.size < 2:
@@ -670,13 +771,17 @@ def align_reference(
         cols = np.array([0, n_rows - 1])
         confidence = 0.0
     else:
-        confidence = float(np.clip((sim_coarse - sim_null) / max(1.0 - sim_null, 1e-6) * 2.0, 0.0, 1.0))
+        confidence = _confidence(similarity, null_similarity)
     frame_seconds = hop_length / sr
+    path_segments = _segments(rows, cols, frame_seconds)
     alignment = Alignment(
         score_times=rows * frame_seconds, take_times=cols * frame_seconds, confidence=confidence,
-        segments=_segments(rows, cols, frame_seconds), hop_length=int(hop_length), sr=int(sr),
-        similarity=sim_coarse, null_similarity=sim_null,
+        segments=path_segments, hop_length=int(hop_length), sr=int(sr),
+        similarity=similarity, null_similarity=null_similarity,
     )
+    pauses = _pauses_between_onsets(alignment, np.array([n.onset for n in reference.notes]))
+    segments = tuple(sorted([x for x in path_segments if x.kind != "pause"] + pauses, key=lambda x: x.take_start))
+    alignment = replace(alignment, segments=segments)
     if warn and confidence < MISMATCH_CONFIDENCE:
         warnings.warn(
             f"the take matches the part {reference.part_name!r} ({reference.source or 'reference'}) poorly "
