@@ -88,6 +88,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--allow-mismatch", action="store_true", help="compare even if the take does not seem to be the part")
     _add_common(p)
 
+    p = sub.add_parser("batch", help="transcribe every take in a folder (and compare those with a matching part)")
+    p.add_argument("input_dir", help="folder of takes (audio files)")
+    p.add_argument("-o", "--output", required=True, help="results folder, one subfolder per take (created if missing)")
+    p.add_argument("--scores", help="folder of parts: a part with the same name as a take is compared with it")
+    p.add_argument("--instrument", help="GM program number or name of every take (default: the part's, else piano)")
+    p.add_argument("--jobs", type=int, help="worker processes (default: the number of CPUs)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask distributed cluster (e.g. tcp://host:8786)")
+    _add_common(p)
+
     p = sub.add_parser("dictionary", help="calibrated pitch templates for your own instrument")
     dsub = p.add_subparsers(dest="dictionary_command", metavar="ACTION")
     dsub.required = True
@@ -135,6 +144,14 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
         )
         print(pipeline.format_comparison_summary(out))
         return EXIT_OK
+    if args.command == "batch":
+        from .batch import run_batch
+
+        summary = run_batch(args.input_dir, args.output, score_dir=args.scores, jobs=args.jobs,
+                            scheduler=args.scheduler, force=args.force, progress=not args.quiet,
+                            instrument=args.instrument)
+        print(summary.table())
+        return summary.exit_code
     if args.command == "dictionary" and args.dictionary_command == "learn":
         learned = pipeline.learn_dictionary_file(args.recording, args.score, args.output, part=args.part,
                                                  instrument=args.instrument, force=args.force, progress=progress)
