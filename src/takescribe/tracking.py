@@ -37,7 +37,7 @@ import scipy.ndimage
 from .errors import InputError
 from .notes import Note, sort_notes
 
-__all__ = ["activations_to_notes", "monophonic_activations", "validate_activations"]
+__all__ = ["activations_to_notes", "monophonic_activations", "pitch_novelty", "validate_activations"]
 
 
 def validate_activations(H: np.ndarray, pitches: np.ndarray, frame_times: np.ndarray) -> None:
@@ -83,7 +83,38 @@ def monophonic_activations(Hn: np.ndarray, *, silence_level: float = 0.1, stay_p
     return out
 
 
-def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float) -> list[int]:
+def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0) -> np.ndarray:
+    """Per-pitch onset novelty: log-compressed spectral flux weighted by each template.
+
+    ``N = Wᵀ · max(0, Δ_t log(1 + compression·V/max V))``: large where the partials of a
+    pitch gain energy, i.e. at its attacks, even when the activation itself hardly moves
+    (a repeated note in a reverberant room, a new bow stroke on the same pitch).
+
+    Parameters
+    ----------
+    V : np.ndarray (n_bins, n_frames)
+    W : np.ndarray (n_bins, n_pitches)
+        Templates (columns sum to 1).
+
+    Returns
+    -------
+    np.ndarray (n_pitches, n_frames), scaled so its 99.5th percentile is 1.
+    """
+    V = np.asarray(V, dtype=np.float32)
+    peak = float(V.max()) if V.size else 0.0
+    if peak <= 0 or V.shape[1] < 2:
+        return np.zeros((W.shape[1], V.shape[1]), np.float32)
+    L = np.log1p(V * np.float32(compression / peak))
+    D = np.zeros_like(L)
+    np.subtract(L[:, 1:], L[:, :-1], out=D[:, 1:])
+    np.maximum(D, 0.0, out=D)
+    N = np.asarray(W, dtype=np.float32).T @ D
+    scale = float(np.percentile(N, 99.5))
+    return N / scale if scale > 0 else N
+
+
+def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
+                  novelty: np.ndarray | None = None, novelty_threshold: float = 1.0) -> list[int]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``."""
     onsets = [start]
     if stop - start <= 2 * frames:
@@ -95,6 +126,13 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     gain = seg - prev_min
     rise = rise[start:stop]
     ok = (gain >= rise) & (prev_min <= dip * seg)
+    if novelty is not None:
+        # a clear attack of this pitch's partials starts a note even without a dip
+        nov = novelty[start:stop]
+        peaks = np.zeros(len(seg), dtype=bool)
+        peaks[1:-1] = (nov[1:-1] >= nov[:-2]) & (nov[1:-1] > nov[2:])
+        ok |= peaks & (nov >= novelty_threshold)
+        gain = np.where(peaks & (nov >= novelty_threshold), np.maximum(gain, nov), gain)
     candidates = np.nonzero(ok[1:-1] & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
     last = 0
     for c in candidates:
@@ -123,6 +161,9 @@ def activations_to_notes(
     reonset_dip: float = 0.6,
     local_window: float = 1.5,
     local_floor: float = 0.1,
+    novelty: np.ndarray | None = None,
+    novelty_threshold: float = 0.5,
+    novelty_snap: float = 0.1,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -160,6 +201,12 @@ def activations_to_notes(
         Thresholds are relative to the loudest activation within ± ``local_window``
         seconds (never below ``local_floor`` of the take's loudest), so quiet passages
         are judged against their surroundings. 0 disables it.
+    novelty : np.ndarray (n_pitches, n_frames), optional
+        Per-pitch onset novelty (:func:`pitch_novelty`). With it, a novelty peak of at
+        least ``novelty_threshold`` starts a new note inside a region (repeated notes
+        that do not dip), and onsets snap to the strongest novelty peak of at least
+        ``novelty_snap`` within 0.1 s before the rise.
+    novelty_threshold, novelty_snap : float
     attack_fraction : float
         The onset is placed where the activation, rising to the note's peak, crosses
         this fraction of the peak.
@@ -207,7 +254,8 @@ def activations_to_notes(
         previous_end = 0
         for sl in scipy.ndimage.find_objects(labels):
             start, stop = sl[0].start, sl[0].stop
-            onsets = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip)
+            onsets = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
+                                   None if novelty is None else novelty[k], novelty_threshold)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
@@ -225,6 +273,12 @@ def activations_to_notes(
                 below = np.nonzero(rising < attack_fraction * peak)[0]
                 onset_frame = first + (int(below[-1]) + 1 if len(below) else 0)
                 onset_frame = max(min(onset_frame, on), first) if i == 0 and not len(below) else onset_frame
+                if novelty is not None:
+                    # snap to the strongest attack of this pitch shortly before or at the rise
+                    lo = max(onset_frame - lookback, first)
+                    window = novelty[k, lo: onset_frame + 2]
+                    if len(window) and window.max() >= novelty_snap:
+                        onset_frame = lo + int(np.argmax(window))
                 # release: first frame after the peak below release_ratio * peak
                 after = part[peak_i:]
                 low = np.nonzero(after < release_ratio * peak)[0]

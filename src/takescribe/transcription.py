@@ -21,7 +21,7 @@ from .instruments import Instrument, resolve_instrument
 from .nmf import Factorization, decompose
 from .notes import Note
 from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
-from .tracking import activations_to_notes
+from .tracking import activations_to_notes, pitch_novelty
 
 __all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "DEFAULT_SETTINGS",
            "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram"]
@@ -69,16 +69,21 @@ class TranscriptionSettings:
     reonset_dip: float = 0.6
     local_window: float = 1.5
     local_floor: float = 0.1
+    use_novelty: bool = False
+    novelty_threshold: float = 0.5
+    novelty_snap: float = 0.1
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
 # Polyphonic instruments (piano, guitar) and melodic ones differ in what a ghost note
 # looks like: chords leave weak partial-sharing activations and hammer noise, so
 # polyphonic tracking is stricter; melodic decoding already keeps one pitch a frame.
-POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.1, release_ratio=0.2,
-                                            reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
-MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.15, min_duration=0.06, release_ratio=0.2,
-                                         reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3)
+POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.3, min_duration=0.06, release_ratio=0.2,
+                                            reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
+                                            use_novelty=False)
+MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06, release_ratio=0.2,
+                                         reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
+                                         use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6)
 
 
 def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
@@ -246,6 +251,9 @@ def transcribe(
         reonset_dip=settings.reonset_dip,
         local_window=settings.local_window,
         local_floor=settings.local_floor,
+        novelty=pitch_novelty(V, final_dictionary.W) if settings.use_novelty else None,
+        novelty_threshold=settings.novelty_threshold,
+        novelty_snap=settings.novelty_snap,
     )
     timings["tracking"] = time.perf_counter() - t0
     return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H[:K], preset, timings)
