@@ -12,7 +12,7 @@ contract: a parsed result, or a :class:`~takescribe.errors.InputError` subclass
 whose message names the file. Everything else is a failure; the script prints
 the count per outcome, one line per distinct failure (exception type and the
 innermost takescribe line) with a reproducing example, and exits with status 1
-if there was any failure. An example running past ``--timeout`` seconds counts as
+if there was any failure. An example running past ``--timeout`` CPU seconds counts as
 a hang; the process's address space is capped (``--memory-limit-gb``) so a memory
 blow-up shows up as a MemoryError rather than taking the machine down. Readers not written yet are reported as missing.
 
@@ -129,7 +129,7 @@ def main(argv=None) -> int:
                         help="labels or label prefixes to run (audio, maps, midi, score, score/mxl...)")
     parser.add_argument("--show", type=int, default=2, help="examples printed per distinct failure")
     parser.add_argument("--timeout", type=float, default=fuzz.READER_SECONDS,
-                        help="seconds one example may take before it counts as a hang (default %(default)s)")
+                        help="CPU seconds one example may take before it counts as a hang (default %(default)s)")
     parser.add_argument("--memory-limit-gb", type=float, default=6.0,
                         help="address-space limit of this process, so a memory blow-up raises MemoryError "
                              "instead of exhausting the machine (POSIX; 0: none; default %(default)s)")
