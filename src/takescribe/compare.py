@@ -597,7 +597,8 @@ def _robust_line(x: np.ndarray, y: np.ndarray, default_slope: float) -> tuple[fl
     if len(x) == 0:
         return default_slope, 0.0
     slope = default_slope
-    if len(x) >= 2:
+    # fewer than four points: the overall pace is a safer slope than a line through them
+    if len(np.unique(np.round(x, 6))) >= 4:
         dx = x[None, :] - x[:, None]
         dy = y[None, :] - y[:, None]
         valid = np.abs(dx) > 1e-6
