@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import json
 import math
-from pathlib import Path
 
 import music21
 import pytest
