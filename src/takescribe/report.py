@@ -530,7 +530,7 @@ def annotate_musicxml(comparison: Comparison, reference: Any) -> bytes:
     for i, found in by_ref.items():
         if i >= len(notes):
             continue
-        found_note = _find_note(index, notes[i])
+        found_note = _find_note(index, notes[i], reference)
         if found_note is None:
             continue
         target, owner = found_note
@@ -595,18 +595,28 @@ def _reference_stream(reference: Any):
         try:
             parsed = converter.parse(source)
             parts = list(parsed.parts) if hasattr(parsed, "parts") else []
+            # a part on several staves (piano) comes back as one PartStaff per staff: keep them together
+            groups: dict = {}
+            for p in parts:
+                groups.setdefault(str(p.id).split("-Staff")[0], []).append(p)
             wanted = getattr(reference, "part_name", "") or ""
-            part = next((p for p in parts if wanted and (p.partName or "") == wanted), None)
-            if part is None and parts:
-                part = parts[0]
+            chosen = next((g for g in groups.values() if wanted and any((p.partName or "") == wanted for p in g)), None)
+            if chosen is None and groups:
+                chosen = next(iter(groups.values()))
+            part = chosen
         except Exception as exc:  # noqa: BLE001 - rebuilt from the notes below, with a warning
             warnings.warn(f"{source}: could not be re-read for annotation ({exc}); the part is rebuilt from its notes",
                           stacklevel=3)
             part = None
     if part is None:
-        part = _part_from_notes(reference)
+        part = [_part_from_notes(reference)]
     score = stream.Score()
-    score.insert(0, part)
+    for staff in part:
+        score.insert(0, staff)
+    if len(part) > 1:
+        from music21 import layout
+
+        score.insert(0, layout.StaffGroup(list(part), symbol="brace"))
     return score
 
 
@@ -634,30 +644,29 @@ def _part_from_notes(reference: Any):
 
 
 def _note_index(score) -> dict:
-    """(measure number, pitch) -> list of (beat, note, owner) for every sounding note.
+    """(measure number, pitch) -> list of (quarters into the measure, note, owner) for every sounding note.
 
     ``owner`` is the chord holding the note (lyrics go on the chord), or the note itself.
     """
     index: dict = {}
     for element in score.recurse().notes:
-        measure = element.measureNumber
-        if measure is None:
+        measure_number = element.measureNumber
+        measure = element.getContextByClass("Measure")
+        if measure_number is None or measure is None:
             continue
         try:
-            beat = float(element.beat)
-        except Exception:  # noqa: BLE001 - beat needs a time signature context
-            beat = 1.0 + float(element.offset)
-        if element.isChord:
-            for member in element.notes:
-                # a note inside a chord carries colour and notehead; the lyric goes on the chord
-                index.setdefault((int(measure), int(member.pitch.midi)), []).append((beat, member, element))
-        else:
-            index.setdefault((int(measure), int(element.pitch.midi)), []).append((beat, element, element))
+            position = float(element.getOffsetInHierarchy(measure))
+        except Exception:  # noqa: BLE001 - not inside that measure's hierarchy
+            position = float(element.offset)
+        members = element.notes if element.isChord else [element]
+        for member in members:
+            # a note inside a chord carries colour and notehead; the lyric goes on the chord
+            index.setdefault((int(measure_number), int(member.pitch.midi)), []).append((position, member, element))
     return index
 
 
-def _find_note(index: dict, score_note: Any):
-    """``(note, owner)`` of a reference note: same printed bar and pitch, nearest beat; or None."""
+def _find_note(index: dict, score_note: Any, reference: Any):
+    """``(note, owner)`` of a reference note: same printed bar and pitch, nearest place in the bar; or None."""
     label = str(getattr(score_note, "measure_label", "") or getattr(score_note, "measure", ""))
     try:
         measure = int(label.strip().rstrip("abcdefgh"))
@@ -666,8 +675,13 @@ def _find_note(index: dict, score_note: Any):
     candidates = index.get((measure, int(score_note.pitch)), [])
     if not candidates:
         return None
-    beat = float(getattr(score_note, "beat", 1.0))
-    best = min(candidates, key=lambda c: abs(c[0] - beat))
-    if abs(best[0] - beat) > 0.51:
+    starts = getattr(reference, "measure_starts", None) or ()
+    bar = int(getattr(score_note, "measure", 0))
+    if 1 <= bar <= len(starts) and getattr(score_note, "onset_quarters", None) is not None:
+        position = float(score_note.onset_quarters) - float(starts[bar - 1])
+    else:
+        position = float(getattr(score_note, "beat", 1.0)) - 1.0  # quarter-note beats assumed
+    best = min(candidates, key=lambda c: abs(c[0] - position))
+    if abs(best[0] - position) > 0.26:
         return None
     return best[1], best[2]
