@@ -35,16 +35,16 @@ INDEX = {e["name"]: e for e in json.loads((CORPUS / "index.json").read_text())}
 MEASURED = {
     "piano_arpeggios": 0.922,
     "piano_block_chords": 0.776,
-    "piano_sustained_bass": 0.921,
+    "piano_sustained_bass": 0.907,
     "piano_chorale_bwv269": 0.884,
     "melody_clarinet_tune": 0.952,
-    "melody_altosax_jig": 0.973,
+    "melody_altosax_jig": 0.959,
     "melody_violin_bwv153_1": 1.000,
     "melody_guitar_jig": 0.790,
     "adverse_reverb_clarinet_tune": 0.850,
     "adverse_detune445_arpeggios": 0.857,
-    "adverse_fast_altosax_jig": 0.968,
-    "adverse_mixed_guitar_jig": 0.698,
+    "adverse_fast_altosax_jig": 0.951,
+    "adverse_mixed_guitar_jig": 0.714,
 }
 
 

@@ -61,6 +61,7 @@ class TranscriptionSettings:
     offset_threshold: float = 0.05
     release_ratio: float = 0.08
     reonset_rise: float = 0.08
+    reonset_frames: int = 4
     min_duration: float = 0.05
     onset_shift: float = 0.0
     smoothing: int = 3
@@ -83,7 +84,7 @@ POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.3, min_duration=0.
                                             use_novelty=False)
 MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06, release_ratio=0.2,
                                          reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
-                                         use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6)
+                                         use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5)
 
 
 def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
@@ -243,6 +244,7 @@ def transcribe(
         offset_threshold=settings.offset_threshold,
         release_ratio=settings.release_ratio,
         reonset_rise=settings.reonset_rise,
+        reonset_frames=settings.reonset_frames,
         min_duration=settings.min_duration,
         smoothing=settings.smoothing,
         polyphonic=preset.polyphonic,

@@ -62,6 +62,7 @@ def main(argv=None) -> int:
             notes = activations_to_notes(
                 tr.H, tr.dictionary.pitches, tr.spectrogram.frame_times, onset_threshold=s.onset_threshold,
                 offset_threshold=s.offset_threshold, release_ratio=s.release_ratio, reonset_rise=s.reonset_rise,
+                reonset_frames=s.reonset_frames,
                 min_duration=s.min_duration, smoothing=s.smoothing, polyphonic=preset.polyphonic,
                 onset_shift=s.onset_shift, attack_fraction=s.attack_fraction, reonset_dip=s.reonset_dip,
                 local_window=s.local_window, local_floor=s.local_floor, novelty=nov if s.use_novelty else None,
