@@ -55,7 +55,9 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
         "notes_in_part": int,            # reference notes
         "notes_played": int,             # played notes given
         "notes_played_correctly": int,   # right pitch, no timing or duration finding
-        "counts": {kind: int, ...},      # one entry per kind in KINDS
+        "counts": {kind: int, ...},      # one entry per kind in KINDS; events only (not the
+                                         # notes linked to a restart or hesitation)
+        "linked_details": int,           # findings linked to a restart or hesitation
         "findings_per_minute": float,
         "tempo_curve": [{"measure": int, "score_quarters": float, "take_time": float,
                          "seconds_per_beat": float, "beats_per_minute": float}, ...],
@@ -373,7 +375,7 @@ def _part_from_reference(reference: Any) -> _Part:
         if callable(measure_beat):
             try:
                 m, b = measure_beat(q)
-                return int(m), round(float(b), 3)
+                return int(m), round(float(b), 2)
             except Exception:  # noqa: BLE001 - fall back to the notes' own positions
                 pass
         # nearest note at or before s: same measure, beat advanced by the quarters elapsed
@@ -383,7 +385,7 @@ def _part_from_reference(reference: Any) -> _Part:
         if measures[i] < 0:
             return None, None
         beat = beats[i] + (q - quarters[i]) if np.isfinite(beats[i]) else None
-        return int(measures[i]), (None if beat is None else round(float(beat), 3))
+        return int(measures[i]), (None if beat is None else round(float(beat), 2))
 
     # measure starts, in score seconds
     measure_starts: dict = {}
@@ -725,6 +727,7 @@ class _Restart:
     resumed_pairs: list  # (ref, played) of the later attempt to use as anchors
     dropped_pairs: list  # (ref, played) of the earlier attempt to drop from the anchors
     voter_pairs: list  # (ref, played) of the run that repeats the part
+    abandoned_refs: dict  # played index of the left-off attempt -> reference note it played
     to_ref: int  # first reference note of the resumed attempt
     from_ref: int  # last reference note reached in the abandoned attempt
     from_time: float
@@ -827,7 +830,7 @@ def _find_restarts(
             continue
         # where the left-off attempt stopped: the end of the written value of its last note,
         # at the overall pace (a release just before the bar line is still "the end of the bar")
-        ref_of_played = {**matched_ref_of, **{j: i for i, j in voter_pairs}}
+        ref_of_played = {**matched_ref_of, **({j: i for i, j in voter_pairs} if best_shift < 0 else {})}
         last_played = max(abandoned, key=lambda j: (played_on[j], played_off[j]))
         last_ref = ref_of_played.get(last_played)
         if last_ref is None:
@@ -845,6 +848,7 @@ def _find_restarts(
                 resumed_pairs=resumed,
                 dropped_pairs=dropped,
                 voter_pairs=voter_pairs,
+                abandoned_refs={j: i for j, i in ref_of_played.items() if j in set(abandoned)},
                 to_ref=int(to_ref),
                 from_ref=int(from_ref),
                 from_time=float(min(max(written_end, max(played_off[abandoned])), later_start)),
@@ -1160,9 +1164,11 @@ def compare_notes(
     for j in range(n_played):
         if played_status[j] != "extra":
             continue
-        pos = take_position(float(played_on[j]))
         owner = abandoned_owner.get(j)
         linked = restart_items[owner] if owner is not None else None
+        attempted = restarts[owner].abandoned_refs.get(j) if owner is not None else None
+        # a note of a left-off attempt sits where that attempt was in the part
+        pos = where(attempted) if attempted is not None else take_position(float(played_on[j]))
         text = (f"{_bar(pos)}: {pitch_name(played_pitch[j])} "
                 + ("from the attempt that was started again." if linked is not None else "that is not in the part."))
         add("extra", played_on[j], **pos, played_pitch=int(played_pitch[j]), played_index=j, linked=linked, text=text)
@@ -1170,11 +1176,13 @@ def compare_notes(
     findings = _number(raw)
 
     # 7. summary
+    # one event, one count: notes linked to a restart or a hesitation are details of it
+    events = [f for f in findings if f.linked_to is None]
     counts = {kind: 0 for kind in KINDS}
-    for f in findings:
+    for f in events:
         counts[f.kind] += 1
     take_end = float(max(played_off.max() if n_played else 0.0, predicted.max() if n_ref else 0.0))
-    per_bar = Counter(f.measure for f in findings if f.measure is not None)
+    per_bar = Counter(f.measure for f in events if f.measure is not None)
     correct = sum(1 for i in range(n_ref) if note_status[i] == "played" and i not in flagged_refs)
     confidence = getattr(alignment, "confidence", None) if alignment is not None else None
     if confidence is not None and not np.isscalar(confidence):
@@ -1185,7 +1193,8 @@ def compare_notes(
         "notes_played": n_played,
         "notes_played_correctly": int(correct),
         "counts": counts,
-        "findings_per_minute": round(len(findings) / (take_end / 60.0), 3) if take_end > 0 else 0.0,
+        "linked_details": len(findings) - len(events),
+        "findings_per_minute": round(len(events) / (take_end / 60.0), 3) if take_end > 0 else 0.0,
         "tempo_curve": _tempo_curve(part, model),
         "bars_with_most_findings": [{"measure": int(m), "findings": int(c)}
                                     for m, c in sorted(per_bar.items(), key=lambda mc: (-mc[1], mc[0]))[:5]],

@@ -243,6 +243,8 @@ def render_html(
     counts = summary.get("counts", {})
     figures = [("notes in the part", str(n_part)), ("played as written", f"{correct} ({share})")]
     figures += [(KIND_STYLES[k].label, str(counts.get(k, 0))) for k in KINDS if counts.get(k, 0)]
+    if summary.get("linked_details"):
+        figures.append(("notes listed under a restart or pause", str(summary["linked_details"])))
     confidence = summary.get("alignment_confidence")
     if confidence is not None:
         figures.append(("how sure the follow-along is", f"{100 * confidence:.0f} %"))
@@ -480,7 +482,11 @@ def _format_deviation(kind: str, value: float | None) -> str:
     if value is None:
         return ""
     if kind == "wrong_pitch":
-        return f"{value:+.0f} semitones"
+        return f"{value:+.0f} semitone{'s' if abs(value) != 1 else ''}"
+    if kind == "hesitation":
+        return f"{value:.1f} s pause"
+    if kind == "restart":
+        return f"{value:.1f} s of music again"
     return f"{value:+.2f} s"
 
 
