@@ -80,7 +80,6 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.fft
-import scipy.signal
 import scipy.sparse
 from scipy.ndimage import maximum_filter1d
 
@@ -273,7 +272,7 @@ def _semitone_filterbank(sr: int, n_fft: int) -> np.ndarray:
     return fb.astype(np.float32)
 
 
-def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block: int = 2048) -> np.ndarray:
+def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block: int = 512) -> np.ndarray:
     """Power per MIDI pitch (n_pitches, n_frames), centred frames, computed in blocks to bound memory."""
     fb = _semitone_filterbank(sr, n_fft)
     used = int(np.flatnonzero(fb.any(axis=0)).max()) + 1  # bins above the highest pitch are not needed
@@ -308,39 +307,37 @@ def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: 
     n_pitches = HIGHEST_PITCH - LOWEST_PITCH + 1
     release = 0.1
     harmonics = np.arange(1, 9)
-    rows, cols, vals = [], [], []
-    weights = np.zeros((len(reference.notes), n_pitches), dtype=np.float32)
-    for k, note in enumerate(reference.notes):
+    energy = np.zeros((n_pitches, n_sub), dtype=np.float32)
+    for note in reference.notes:
         start = int(round(note.onset / dt))
         stop = min(int(round((note.offset + 3 * release) / dt)), n_sub)
         if start >= n_sub or stop <= start:
             continue
         t = np.arange(stop - start) * dt
         held = note.offset - note.onset
-        env = np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)
-        rows.append(np.full(stop - start, k))
-        cols.append(np.arange(start, stop))
-        vals.append(env)
+        env = (np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)).astype(np.float32)
+        weights = np.zeros(n_pitches, dtype=np.float32)
         position = note.pitch + 12.0 * np.log2(harmonics) - LOWEST_PITCH
         low = np.floor(position).astype(int)
         frac = position - low
         for bins, share in ((low, 1.0 - frac), (low + 1, frac)):
             ok = (bins >= 0) & (bins < n_pitches)
-            np.add.at(weights[k], bins[ok], (share / harmonics)[ok])
-    if rows:
-        envelopes = scipy.sparse.csr_matrix(
-            (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-            shape=(len(reference.notes), n_sub), dtype=np.float32)
-        energy = np.asarray((envelopes.T @ weights).T, dtype=np.float32)
-    else:
-        energy = np.zeros((n_pitches, n_sub), dtype=np.float32)
+            np.add.at(weights, bins[ok], (share / harmonics)[ok])
+        rows = np.flatnonzero(weights)
+        energy[rows, start:stop] += weights[rows, None] * env[None, :]
     out = []
     for n_fft in n_ffts:
+        # smoothing with the squared window, evaluated only at the frame centres
         taps = max(int(round(n_fft / (hop_length / sub))), 1)
         kernel = np.hanning(taps + 2)[1:-1] ** 2
         kernel /= kernel.sum()
-        smooth = scipy.signal.oaconvolve(energy, kernel[None, :].astype(np.float32), mode="same", axes=1)
-        out.append(np.ascontiguousarray(np.maximum(smooth[:, ::sub][:, :n_frames], 0.0), dtype=np.float32))
+        half = taps // 2
+        padded = np.pad(energy, ((0, 0), (half, taps)))
+        smooth = np.zeros((n_pitches, n_frames), dtype=np.float32)
+        for k, w in enumerate(kernel):
+            # frame n takes energy[n * sub + k - half] * kernel[k]
+            smooth += np.float32(w) * padded[:, k:k + n_frames * sub:sub][:, :n_frames]
+        out.append(smooth)
     return out
 
 
@@ -463,7 +460,7 @@ def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, 
     band1 = (0, 0)
     band2 = (0, 0)
     codes: list[np.ndarray] = []
-    sources: dict[int, np.ndarray] = {}
+    sources: dict[int, np.ndarray] = {}  # jump columns: record rows of the previous column
     best_end = (inf, -1, -1)
     cands = np.empty((6, n_rows))
     positions = np.arange(n_rows)
@@ -516,13 +513,12 @@ def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, 
             if jumped.any():
                 lp, hp = band1
                 vals = prev1[lp + pad:hp + pad]
+                # the minimum of vals[p:] sits at the first "record from the end" at or after p
+                # (a value <= every later one); records are few, so they are all we keep
                 rev = vals[::-1]
                 acc = np.minimum.accumulate(rev)
-                arg_rev = np.maximum.accumulate(np.where(rev == acc, np.arange(rev.size), 0))
-                suffix_arg = (rev.size - 1 - arg_rev)[::-1]
-                rows_j = np.flatnonzero(jumped) + l
-                q = np.clip(rows_j + 1 - lp, 0, rev.size - 1)
-                sources[j] = np.stack([rows_j, lp + suffix_arg[q]])
+                records = (rev.size - 1 - np.flatnonzero(rev <= acc))[::-1].astype(np.int32) + lp
+                sources[j] = records
         # roll the column buffers, clearing only the band that was written two columns ago
         lp2, hp2 = band2
         prev2[lp2 + pad:hp2 + pad] = inf
@@ -554,8 +550,8 @@ def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, 
         elif code == _PAUSE:
             j = j - 1
         else:
-            table = sources[j]
-            i, j = int(table[1][np.searchsorted(table[0], i)]), j - 1
+            records = sources[j]
+            i, j = int(records[np.searchsorted(records, i + 1)]), j - 1
     return np.array(rows_out[::-1]), np.array(cols_out[::-1]), total
 
 
