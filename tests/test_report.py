@@ -201,3 +201,24 @@ def test_large_take_is_embedded_smaller(tmp_path, everything, monkeypatch):
     assert len(data) < take.stat().st_size // 4
     audio, audio_sr = sf.read(io.BytesIO(data))
     assert audio_sr <= 16000 and abs(len(audio) / audio_sr - 3.0) < 0.05
+
+
+def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_xsd_dir):
+    """A committed piano part (two staves, chords) annotated from its deviation take."""
+    from takescribe.noteio import read_notes
+    from takescribe.score import load_reference
+
+    folder = Path(__file__).resolve().parents[1] / "fixtures" / "deviations"
+    score, take = folder / "dev_piano_march.musicxml", folder / "dev_piano_march_pitch.txt"
+    if not (score.exists() and take.exists()):
+        pytest.skip(f"deviation fixtures not built in {folder}")
+    ref = load_reference(score)
+    result = compare_notes(ref, None, read_notes(take))
+    data = annotate_musicxml(result, ref)
+    document = etree.fromstring(data)
+    schema = xsd_schema(musicxml_xsd_dir)
+    assert schema.validate(document), schema.error_log.filter_from_errors()[:5]
+    # both staves are kept, and every finding on a note of the part is marked on that note
+    assert len(document.findall(".//note")) >= len(ref.notes)
+    marked = {f.reference_index for f in result.findings if f.reference_index is not None and f.kind != "restart"}
+    assert len([n for n in document.iter("note") if n.get("color")]) == len(marked) > 0
