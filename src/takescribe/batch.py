@@ -25,12 +25,15 @@ Seconds in the summary are the wall-clock time of the take's job in its worker.
 from __future__ import annotations
 
 import contextlib
+import multiprocessing
 import os
 import sys
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
+
+import numpy as np
 
 from .errors import EXIT_BAD_INPUT, EXIT_OK, InputError, TakescribeError
 from .pipeline import REPORT_FILES, compare_file, transcribe_file, write_draft_midi
@@ -240,6 +243,19 @@ class _Bar:
             print(line, file=sys.stderr, flush=True)
 
 
+def _warm_up() -> None:
+    """Load the analysis code paths once before forking the workers.
+
+    The first spectrogram of a process imports and compiles much of librosa (about
+    10 s of a cold start, measured on the 2-core test machine); forked workers then
+    inherit it instead of paying it each.
+    """
+    from .spectrogram import compute_spectrogram
+
+    noise = np.random.default_rng(0).standard_normal(22050).astype(np.float32)
+    compute_spectrogram(0.1 * noise, 22050)
+
+
 def _run_local(jobs: list[TakeJob], workers: int, bar: _Bar) -> dict:
     results = {}
     if workers == 1:
@@ -247,6 +263,8 @@ def _run_local(jobs: list[TakeJob], workers: int, bar: _Bar) -> dict:
             results[job.take] = process_take(job)
             bar.step(results[job.take])
         return results
+    if multiprocessing.get_start_method(allow_none=False) == "fork":
+        _warm_up()
     with ProcessPoolExecutor(max_workers=workers) as pool:
         futures = {pool.submit(process_take, job): job for job in jobs}
         for future in as_completed(futures):
@@ -268,7 +286,7 @@ def _run_dask(jobs: list[TakeJob], scheduler, bar: _Bar) -> dict:
                          " pip install 'dask[distributed]', or run without --scheduler") from exc
     results = {}
     try:
-        client = Client(scheduler, set_as_default=False)
+        client = Client(scheduler)
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); check the address"
                          " (e.g. tcp://host:8786) and that the scheduler runs") from exc

@@ -1,0 +1,125 @@
+"""Batch runs: a folder of corpus takes, local process pool, resume, and the same batch on a Dask cluster."""
+
+from __future__ import annotations
+
+import shutil
+import sys
+from pathlib import Path
+
+import pytest
+
+from takescribe.batch import find_takes, run_batch
+from takescribe.cli import main
+from takescribe.errors import InputError
+from takescribe.pipeline import REPORT_FILES
+
+CORPUS = Path(__file__).resolve().parents[1] / "fixtures" / "corpus"
+TAKES = ("heldout/adverse_detune445_arpeggios", "heldout/adverse_fast_altosax_jig", "tuning/adverse_mixed_trumpet_reel")
+
+
+@pytest.fixture(scope="module")
+def folders(tmp_path_factory):
+    root = tmp_path_factory.mktemp("batch")
+    takes, scores = root / "takes", root / "scores"
+    takes.mkdir()
+    scores.mkdir()
+    for name in TAKES:
+        shutil.copy(CORPUS / f"{name}.flac", takes)
+    # one take has its part; one "take" is not audio at all
+    shutil.copy(CORPUS / f"{TAKES[0]}.musicxml", scores)
+    (takes / "broken.wav").write_bytes(b"RIFF\x00\x00\x00\x00WAVEnot really audio")
+    (takes / "readme.txt").write_text("not a take")
+    return root, takes, scores
+
+
+@pytest.fixture(scope="module")
+def local_run(folders):
+    root, takes, scores = folders
+    return run_batch(takes, root / "local", score_dir=scores, jobs=2, progress=False)
+
+
+def _outputs(folder: Path) -> dict:
+    return {p.relative_to(folder).as_posix(): p for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def test_local_run_transcribes_compares_and_reports_failures(folders, local_run):
+    root, _, _ = folders
+    by_name = {Path(r.take).name: r for r in local_run.results}
+    assert sorted(by_name) == ["adverse_detune445_arpeggios.flac", "adverse_fast_altosax_jig.flac",
+                               "adverse_mixed_trumpet_reel.flac", "broken.wav"]
+    assert by_name["broken.wav"].status == "failed" and "broken.wav" in by_name["broken.wav"].error
+    assert local_run.exit_code == 1  # one failing take: the batch goes on but says so
+    with_part = by_name["adverse_detune445_arpeggios.flac"]
+    assert with_part.status == "done" and with_part.findings is not None and with_part.notes > 0
+    for name in ("adverse_fast_altosax_jig.flac", "adverse_mixed_trumpet_reel.flac"):
+        assert by_name[name].status == "done" and by_name[name].findings is None and by_name[name].notes > 0
+    files = _outputs(root / "local")
+    for name in REPORT_FILES + ("draft.mid", "notes.txt"):
+        assert f"adverse_detune445_arpeggios/{name}" in files
+    assert "adverse_fast_altosax_jig/report.html" not in files
+    table = local_run.table()
+    assert "broken.wav" in table and "1 failed" in table
+
+
+def test_resume_skips_finished_takes(folders, local_run, capsys):
+    root, takes, scores = folders
+    before = {k: p.stat().st_mtime_ns for k, p in _outputs(root / "local").items()}
+    code = main(["batch", str(takes), "-o", str(root / "local"), "--scores", str(scores), "--jobs", "2", "--quiet"])
+    out = capsys.readouterr().out
+    assert code == 1  # the broken take still fails
+    assert "3 skipped" in out and "1 failed" in out
+    after = {k: p.stat().st_mtime_ns for k, p in _outputs(root / "local").items()}
+    assert after == before  # nothing rewritten
+
+
+def test_partial_outputs_are_not_overwritten(folders, local_run, tmp_path):
+    root, takes, _ = folders
+    only = tmp_path / "takes"
+    only.mkdir()
+    shutil.copy(takes / "adverse_fast_altosax_jig.flac", only)
+    out = tmp_path / "out"
+    (out / "adverse_fast_altosax_jig").mkdir(parents=True)
+    (out / "adverse_fast_altosax_jig" / "draft.mid").write_bytes(b"left over")
+    summary = run_batch(only, out, jobs=1, progress=False)
+    assert summary.results[0].status == "failed"
+    assert "only some of this take's outputs" in summary.results[0].error
+    assert (out / "adverse_fast_altosax_jig" / "draft.mid").read_bytes() == b"left over"
+
+
+def test_dask_cluster_gives_the_local_results(folders, local_run):
+    distributed = pytest.importorskip("dask.distributed")
+    root, takes, scores = folders
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        summary = run_batch(takes, root / "dask", score_dir=scores, scheduler=cluster.scheduler_address,
+                            progress=False)
+    assert [(r.status, r.notes, r.findings) for r in summary.results] == \
+        [(r.status, r.notes, r.findings) for r in local_run.results]
+    local, remote = _outputs(root / "local"), _outputs(root / "dask")
+    assert sorted(local) == sorted(remote)
+    for name in local:
+        if name.endswith(("notes.txt", "findings.json")):
+            assert local[name].read_text() == remote[name].read_text(), name
+
+
+def test_missing_dask_is_a_clear_error(folders, monkeypatch, tmp_path):
+    _, takes, _ = folders
+    monkeypatch.setitem(sys.modules, "dask.distributed", None)  # import fails as if not installed
+    with pytest.raises(InputError, match=r"dask\[distributed\]"):
+        run_batch(takes, tmp_path / "out", scheduler="tcp://127.0.0.1:1", progress=False)
+
+
+def test_bad_folders_name_the_problem(folders, tmp_path):
+    _, takes, _ = folders
+    with pytest.raises(InputError, match="input folder not found"):
+        run_batch(tmp_path / "nowhere", tmp_path / "out", progress=False)
+    with pytest.raises(InputError, match="output folder is the input folder"):
+        run_batch(takes, takes, progress=False)
+    with pytest.raises(InputError, match="score folder not found"):
+        run_batch(takes, tmp_path / "out", score_dir=tmp_path / "none", progress=False)
+
+
+def test_takes_with_one_name_and_two_suffixes_are_refused(tmp_path):
+    (tmp_path / "a.wav").write_bytes(b"")
+    (tmp_path / "a.flac").write_bytes(b"")
+    with pytest.raises(InputError, match="several suffixes"):
+        find_takes(tmp_path, tmp_path / "out")
