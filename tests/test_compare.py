@@ -11,7 +11,6 @@ import json
 from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
-from types import SimpleNamespace
 
 import librosa
 import numpy as np

@@ -21,7 +21,7 @@ import soundfile as sf
 from lxml import etree
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from test_compare import FakeAlignment, _restart_take, _single_line, render, study  # noqa: E402
+from test_compare import FakeAlignment, _restart_take, _single_line, study  # noqa: E402
 
 from takescribe.compare import KINDS, compare_notes  # noqa: E402
 from takescribe.errors import OutputError  # noqa: E402

@@ -10,30 +10,42 @@ Method
 1. Every reference note is placed in the take through the alignment (``score_to_take``).
 2. Anchors: played notes are matched to reference notes of the same pitch with
    :func:`takescribe.evaluate.match_notes` (maximum bipartite matching, mir_eval
-   conventions) in a wide window (``anchor_window``).
-3. Restarts: a run of at least ``min_restart_notes`` unmatched played notes that repeats a
-   stretch of the part already (or later) played, shifted by one consistent time offset,
-   is a second attempt at the same bars. The earlier attempt is the abandoned one: its
-   notes become ``extra`` findings linked to ONE ``restart`` finding, and the timing model
-   is cut at the bar the player went back to.
+   conventions) in a wide window (``anchor_window``). The anchors are then re-made around
+   the local-tempo prediction of step 4 (a few rounds), so they follow a take that drifts
+   away from a coarse alignment; a stretch of at least ``min_restart_notes`` reference notes
+   left without anchors (an unnoticed pause, a misplaced jump) is laid over the free played
+   notes between its neighbouring anchors at the overall pace, at the one offset that lines
+   up most of its pitches.
+3. Restarts: a run of at least ``min_restart_notes`` unmatched played notes that repeats,
+   with one consistent time shift, notes already matched elsewhere in the take is a second
+   attempt at the same bars (both attempts must be heard; a run that holds notes matched
+   further on is a repeated motif, not a restart). The earlier attempt is the left-off one:
+   its notes become ``extra`` findings linked to ONE ``restart`` finding (placed where that
+   attempt was in the part), and the timing model is cut at the note the player went back to.
 4. Local tempo: reference onsets are grouped (chords), and the take time of each group is
    predicted by a robust line (Siegel's repeated median) through its neighbouring groups
-   (``neighbours`` on each side, the group itself left out). Gradual tempo drift is
-   followed by the line, so only the local residual counts as early or late.
+   (``neighbours`` on each side, the group itself left out; fewer than four groups take the
+   overall pace). Gradual tempo drift is followed by the line, so only the local residual
+   counts as early or late.
 5. Hesitations: walking through the part, a group that arrives more than
    ``hesitation_threshold`` seconds after the line through the groups before it *and*
    whose delay persists on the next group (the music resumes shifted, rather than one
-   late note) opens a new timing segment. The pause is ONE ``hesitation`` finding; the
-   delayed notes are judged against the tempo after the pause and are reported ``late``
-   only if they are late against that tempo as well, with ``linked_to`` pointing to the
-   hesitation.
+   late note) opens a new timing segment. The pause is ONE ``hesitation`` finding, timed
+   where the music should have gone on (the onset after the longest silence minus the
+   pause); the delayed notes are judged against the tempo after the pause and are
+   reported ``late`` only if they are late against that tempo as well, with ``linked_to``
+   pointing to the hesitation. A chord split by the pause (one hand before, one after) is
+   matched on both sides, and a note held into the pause is not ``held_long``.
 6. Final matching: same-pitch matching in ``timing_tolerance + match_margin`` around the
-   local-tempo prediction, then, among the leftovers, pitch-free matching pairs
-   ``wrong_pitch`` notes; the remaining reference notes are ``missed`` and the remaining
-   played notes ``extra``.
+   local-tempo prediction, each played note then moved to the nearest free reference note
+   of its pitch (the maximum matching only maximises the count); among the leftovers,
+   pitch-free matching pairs ``wrong_pitch`` notes; the remaining reference notes are
+   ``missed`` and the remaining played notes ``extra``.
 7. Durations: a correctly pitched note held for less than ``1 - duration_tolerance`` or
    more than ``1 + duration_tolerance`` times its written length at the local tempo (and
-   off by more than ``timing_tolerance`` seconds) is ``held_short`` / ``held_long``.
+   off by more than ``timing_tolerance`` seconds) is ``held_short`` / ``held_long``; a
+   note released just as the next one starts is never ``held_short`` (the next note, if
+   early or extra, is reported itself).
 
 Conventions
 -----------
