@@ -370,3 +370,57 @@ def test_midi_defaults_follow_the_smf_specification(tmp_path):
     assert ref.notes[0].offset == pytest.approx(2.5)
     assert ref.part_name == "Track 1" and ref.measure_starts == (0.0, 4.0, 8.0)
     assert isinstance(ref, Reference)
+
+
+# --------------------------------------------------------------------------
+# score-timewise (MusicXML 4.0 allows either document element)
+# --------------------------------------------------------------------------
+def _musicxml_schema(xsd_dir):
+    import re
+
+    import lxml.etree as LET
+
+    # offline: point the schema's two network imports at the local copies (see SOURCE.md there)
+    text = (xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
+    for name in ("xml.xsd", "xlink.xsd"):
+        text = re.sub(r'schemaLocation="[^"]*/' + re.escape(name) + '"',
+                      f'schemaLocation="{(xsd_dir / name).as_uri()}"', text)
+    return LET.XMLSchema(LET.fromstring(text.encode("utf-8"), base_url=(xsd_dir / "musicxml.xsd").as_uri()))
+
+
+def _partwise_to_timewise(data: bytes) -> bytes:
+    """Regroup a score-partwise document measure by measure (test helper, checked by the XSD)."""
+    import lxml.etree as LET
+
+    root = LET.fromstring(data)
+    out = LET.Element("score-timewise", dict(root.attrib))
+    parts = root.findall("part")
+    for child in root:
+        if child.tag != "part":
+            out.append(child)
+    for k, first_measure in enumerate(parts[0].findall("measure")):
+        measure = LET.SubElement(out, "measure", dict(first_measure.attrib))
+        for part in parts:
+            holder = LET.SubElement(measure, "part", {"id": part.get("id")})
+            holder.extend(list(part.findall("measure")[k]))
+    return LET.tostring(out, xml_declaration=True, encoding="UTF-8")
+
+
+def test_timewise_reads_like_partwise(our_piece_paths, tmp_path, musicxml_xsd_dir):
+    import lxml.etree as LET
+
+    from takescribe.score import _timewise_to_partwise
+
+    xml, _ = our_piece_paths
+    timewise = _partwise_to_timewise(xml.read_bytes())
+    schema = _musicxml_schema(musicxml_xsd_dir)
+    # the MusicXML 4.0 schema accepts the hand-made timewise file and our partwise rewrite of it
+    assert schema.validate(LET.fromstring(timewise)), schema.error_log.last_error
+    import xml.etree.ElementTree as ET
+
+    rewritten = _timewise_to_partwise(ET.fromstring(timewise))  # the stdlib tree defusedxml hands over
+    assert schema.validate(LET.fromstring(rewritten.encode("utf-8"))), schema.error_log.last_error
+    path = tmp_path / "timewise.musicxml"
+    path.write_bytes(timewise)
+    a, b = load_reference(xml), load_reference(path)
+    assert a.notes == b.notes and a.tempo_map == b.tempo_map

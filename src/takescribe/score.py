@@ -495,6 +495,9 @@ def _check_xml(data: bytes, path: Path) -> str:
             f"{path}: XML but not MusicXML (root element <{tag}>, expected <score-partwise> or "
             "<score-timewise>); export the score as MusicXML"
         )
+    if tag == "score-timewise":
+        # music21 reads partwise only; MusicXML defines the two as transpositions of each other
+        return _timewise_to_partwise(root)
     for enc in ("utf-8", "utf-16"):
         try:
             text = data.decode(enc)
@@ -504,6 +507,29 @@ def _check_xml(data: bytes, path: Path) -> str:
     else:  # pragma: no cover - defusedxml already decoded it, so one of the above works
         raise ScoreError(f"{path}: cannot decode the XML text; save it as UTF-8")
     return text.lstrip("\ufeff")
+
+
+def _timewise_to_partwise(root) -> str:
+    """Rewrite a score-timewise tree as score-partwise text (as the MusicXML 4.0 timepart.xsl does)."""
+    import xml.etree.ElementTree as ET
+
+    out = ET.Element("score-partwise", dict(root.attrib))
+    part_ids: list[str] = []
+    parts: dict[str, ET.Element] = {}
+    for child in root:
+        if child.tag != "measure":
+            out.append(child)
+            continue
+        for part in child.findall("part"):
+            pid = part.get("id", "")
+            if pid not in parts:
+                part_ids.append(pid)
+                parts[pid] = ET.Element("part", {"id": pid})
+            measure = ET.SubElement(parts[pid], "measure", dict(child.attrib))
+            measure.extend(list(part))
+    for pid in part_ids:
+        out.append(parts[pid])
+    return ET.tostring(out, encoding="unicode")
 
 
 def _parse_musicxml(path: Path):
