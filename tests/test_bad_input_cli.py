@@ -189,3 +189,76 @@ def test_silent_take_gives_an_empty_draft_with_a_warning(capsys, inputs, outputs
     assert code == EXIT_OK, err
     assert "silent.wav" in err and "silent" in err and "Traceback" not in err
     assert draft.read_bytes()[:4] == b"MThd"
+
+
+# ---------------------------------------------------------------------------
+# the reference part side of the same contract (compare and transcribe --score)
+
+
+def _part_missing(folder: Path) -> Path:
+    return folder / "no_such_part.musicxml"
+
+
+def _part_empty(folder: Path) -> Path:
+    path = folder / "empty.mid"
+    path.write_bytes(b"")
+    return path
+
+
+def _part_is_audio(folder: Path) -> Path:
+    path = folder / "part.musicxml"
+    sf.write(path, chord(22050), 22050, format="WAV", subtype="PCM_16")
+    return path
+
+
+def _part_cut_musicxml(folder: Path) -> Path:
+    path = folder / "cut.musicxml"
+    path.write_text(MUSICXML_TEXT[: len(MUSICXML_TEXT) // 2], encoding="utf-8")
+    return path
+
+
+def _part_cut_midi(folder: Path) -> Path:
+    from test_fuzz_readers import MIDI_SEED
+
+    path = folder / "cut.mid"
+    path.write_bytes(MIDI_SEED[: len(MIDI_SEED) // 2])
+    return path
+
+
+def _part_damaged_mxl(folder: Path) -> Path:
+    # a compressed MusicXML whose score member lost its local file header signature ("PK\x03\x04",
+    # ZIP APPNOTE 4.3.7) while the central directory still lists it
+    from test_fuzz_readers import MXL_SEED
+
+    data = bytearray(MXL_SEED)
+    at = data.find(b"PK\x03\x04", data.find(b"tune.musicxml") - 40)
+    assert data[at + 30 : at + 43] == b"tune.musicxml"
+    data[at : at + 4] = b"XXXX"
+    path = folder / "damaged.mxl"
+    path.write_bytes(bytes(data))
+    return path
+
+
+BAD_PARTS = {
+    "missing": _part_missing,
+    "empty-midi": _part_empty,
+    "audio-named-musicxml": _part_is_audio,
+    "truncated-musicxml": _part_cut_musicxml,
+    "truncated-midi": _part_cut_midi,
+    "damaged-mxl": _part_damaged_mxl,
+}
+
+
+@pytest.mark.parametrize("case", list(BAD_PARTS), ids=list(BAD_PARTS))
+def test_compare_refuses_bad_part(capsys, inputs, outputs, good_take, case):
+    part = BAD_PARTS[case](inputs)
+    report = outputs / "report"
+    _check_refused(capsys, ["compare", good_take, part, "-o", report], part, inputs, outputs, quiet=True)
+    assert not report.exists()
+
+
+@pytest.mark.parametrize("case", list(BAD_PARTS), ids=list(BAD_PARTS))
+def test_transcribe_refuses_bad_score(capsys, inputs, outputs, good_take, case):
+    part = BAD_PARTS[case](inputs)
+    _check_refused(capsys, ["transcribe", good_take, "--score", part, "-o", outputs / "draft.mid"],
+                   part, inputs, outputs, quiet=True)
