@@ -241,6 +241,7 @@ def test_held_short_and_long(factor, kind):
     result = compare_notes(ref, None, played)
     assert [f.kind for f in result.findings] == [kind]
     assert result.findings[0].deviation == pytest.approx((factor - 1.0) * (n.offset - n.onset), abs=0.01)
+    assert compare_notes(ref, None, played, judge_durations=False).findings == ()
 
 
 # --------------------------------------------------------------------------- hesitation and restart

@@ -885,6 +885,7 @@ def compare_notes(
     hesitation_threshold: float = 0.3,
     neighbours: int = 4,
     min_restart_notes: int = 3,
+    judge_durations: bool = True,
 ) -> Comparison:
     """Compare the notes of a take with the reference part.
 
@@ -916,6 +917,10 @@ def compare_notes(
         Onset groups on each side used for the local tempo line.
     min_restart_notes : int
         Notes of the abandoned attempt needed to recognise a restart.
+    judge_durations : bool
+        Report ``held_short`` / ``held_long``. Turn off when the note ends are not reliable
+        (a transcription of a piano or plucked take, where the end of a note is the end of
+        its audible decay rather than the player's release).
 
     Returns
     -------
@@ -940,6 +945,8 @@ def compare_notes(
     >>> [(f.kind, f.expected_pitch) for f in result.findings]
     [('missed', 63)]
     """
+    if not isinstance(judge_durations, (bool, np.bool_)):
+        raise TypeError(f"judge_durations must be True or False, got {judge_durations!r}")
     validate_comparison_options(
         timing_tolerance=timing_tolerance,
         duration_tolerance=duration_tolerance,
@@ -1143,7 +1150,7 @@ def compare_notes(
         expected_length = float(slopes[i] * (part.offsets[i] - part.onsets[i]))
         played_length = float(played_off[j] - played_on[j])
         difference = played_length - expected_length
-        if expected_length > 0 and abs(difference) > timing_tolerance:
+        if judge_durations and expected_length > 0 and abs(difference) > timing_tolerance:
             ratio = played_length / expected_length
             kind = None
             if ratio < 1.0 - duration_tolerance and _silence_after(j, played_on, played_off, pool) > timing_tolerance:

@@ -259,6 +259,8 @@ def render_html(
         out.append(f'<audio controls preload="metadata" src="data:{mime};base64,{base64.b64encode(data).decode("ascii")}"></audio>')
 
     out.append("<h2>Bar by bar</h2>")
+    # the hatch pattern shared by every drawing on the page (ids are page-wide in HTML)
+    out.append(f'<svg width="0" height="0" style="position:absolute" aria-hidden="true">{_HATCH}</svg>')
     out.append(_legend_html())
     out.extend(_piano_roll_rows(comparison, reference, draft_notes=draft_notes))
 
@@ -370,7 +372,7 @@ def _row_svg(comparison, notes, played, exp_on, exp_off, times, restarts, t0, t1
         return round(16.0 + (high - p) * px_per_pitch, 2)
 
     parts = [f'<div class="row"><svg viewBox="0 0 {width:.0f} {height:.0f}" role="img" '
-             f'aria-label="Piano roll from {t0:.1f} s to {t1:.1f} s">', _HATCH if row == 0 else ""]
+             f'aria-label="Piano roll from {t0:.1f} s to {t1:.1f} s">']
     # octave guide lines at every C
     for p in range(low, high + 1):
         if p % 12 == 0:
