@@ -15,7 +15,9 @@ of them share
   templates serve every block,
 - a frame-local start for H (each frame's energy spread over the templates) and a
   fixed number of iterations (no early stop, which would depend on the block),
-- the note-tracking reference level (the largest activation of the whole take).
+- the note-tracking reference level (the largest activation of the whole take) and,
+  for melodic settings, the onset-novelty peak and scale (the scale is the 99.5th
+  percentile over the sampled frames rather than over every frame).
 
 Blocks are ``block_seconds`` long plus ``overlap_seconds`` of context on each side
 (the variable-Q filters are up to ~2 s long in the bass, so the context keeps the
@@ -102,6 +104,22 @@ def _frame_start(V: np.ndarray, W_colsum_mean: float, K: int) -> np.ndarray:
     """A frame-local start for H: each frame's energy spread evenly over the K templates."""
     energy = V.sum(axis=0, dtype=np.float64) / (K * max(W_colsum_mean, 1e-12))
     return np.repeat(np.maximum(energy, 1e-6).astype(V.dtype)[None, :], K, axis=0)
+
+
+def _novelty(V: np.ndarray, W: np.ndarray, peak: float, *, compression: float = 100.0) -> np.ndarray:
+    """Unscaled per-pitch onset novelty of :func:`takescribe.tracking.pitch_novelty` with the take's peak.
+
+    ``pitch_novelty`` takes the peak of V and its 99.5th-percentile scale from the
+    array it is given; a block must use the whole take's instead (the scale is
+    applied by the caller), so the formula is repeated here with ``peak`` given.
+    """
+    if peak <= 0 or V.shape[1] < 2:
+        return np.zeros((W.shape[1], V.shape[1]), np.float32)
+    L = np.log1p(V * np.float32(compression / peak))
+    D = np.zeros_like(L)
+    np.subtract(L[:, 1:], L[:, :-1], out=D[:, 1:])
+    np.maximum(D, 0.0, out=D)
+    return np.asarray(W, dtype=np.float32).T @ D
 
 
 def transcribe_long(
@@ -207,7 +225,7 @@ def transcribe_long(
         say(f"long take: {len(layout)} blocks of {block_seconds:g} s; first pass (scale, adaptation sample)")
         n_sample = max(int(round(adapt_seconds * sr / hop)), 1)
         stride = max(int(np.ceil(n_frames / n_sample)), 1)
-        total = 0.0
+        total = v_peak = 0.0
         initial = None
         samples, sample_masks = [], []
         for b, (start, core_start, core_stop, stop) in enumerate(layout):
@@ -223,6 +241,7 @@ def transcribe_long(
                 frame_seconds = hop / sr
             Vc = V[:, core_start - start: core_stop - start]
             total += float(Vc.sum(dtype=np.float64))
+            v_peak = max(v_peak, float(Vc.max(initial=0.0)))
             np.save(Path(folder) / f"V{b}.npy", V)
             picked = np.arange(core_start + (-core_start) % stride, core_stop, stride)
             samples.append(V[:, picked - start])
@@ -262,8 +281,9 @@ def transcribe_long(
         W1 = np.hstack([adapted.W, noise]).astype(np.float32)
         timings["factorization"] += time.perf_counter() - t0
 
-        # pass 2: factorize each block, keep the core activations on disk
+        # pass 2: factorize each block, keep the core activations (and onset novelty) on disk
         peak = 0.0
+        novelty_sample = []
         for b, (start, core_start, core_stop, stop) in enumerate(layout):
             say(f"block {b + 1}/{len(layout)}: factorization")
             t0 = time.perf_counter()
@@ -279,35 +299,54 @@ def transcribe_long(
             Hc = np.ascontiguousarray(H[:K, core_start - start: core_stop - start])
             peak = max(peak, float(Hc.max(initial=0.0)))
             np.save(Path(folder) / f"{b}.npy", Hc)
+            if settings.use_novelty:
+                N = _novelty(V, adapted.W, v_peak * inv_scale)[:, core_start - start: core_stop - start]
+                np.save(Path(folder) / f"N{b}.npy", np.ascontiguousarray(N))
+                picked = np.arange(core_start + (-core_start) % stride, core_stop, stride)
+                novelty_sample.append(N[:, picked - core_start])
             timings["factorization"] += time.perf_counter() - t0
 
         # tracking: each block owns the notes whose onset lies in its core
         say("note tracking")
         t0 = time.perf_counter()
+        novelty_scale = 0.0
+        if novelty_sample:
+            novelty_scale = float(np.percentile(np.hstack(novelty_sample), 99.5))
         notes: list[Note] = []
+
+        def around(prefix: str, b: int) -> tuple[np.ndarray, int]:
+            """Block b's core with the end of the previous core and all of the next one."""
+            parts = [np.load(Path(folder) / f"{prefix}{b}.npy")]
+            first_frame = layout[b][1]
+            if b > 0 and context:
+                left = np.load(Path(folder) / f"{prefix}{b - 1}.npy")[:, -context:]
+                parts.insert(0, left)
+                first_frame -= left.shape[1]
+            if b + 1 < len(layout):
+                parts.append(np.load(Path(folder) / f"{prefix}{b + 1}.npy"))
+            return np.hstack(parts), first_frame
+
         for b, (start, core_start, core_stop, stop) in enumerate(layout):
             if peak <= 0:
                 break
-            parts = [np.load(Path(folder) / f"{b}.npy")]
-            first_frame = core_start
-            if b > 0:
-                left = np.load(Path(folder) / f"{b - 1}.npy")[:, -context:] if context else None
-                if left is not None and left.shape[1]:
-                    parts.insert(0, left)
-                    first_frame -= left.shape[1]
-            if b + 1 < len(layout):
-                parts.append(np.load(Path(folder) / f"{b + 1}.npy"))
-            H = np.hstack(parts)
+            H, first_frame = around("", b)
+            novelty = None
+            if settings.use_novelty:
+                novelty, _ = around("N", b)
+                if novelty_scale > 0:
+                    novelty /= np.float32(novelty_scale)
             times = np.arange(first_frame, first_frame + H.shape[1]) * frame_seconds
             _, thresholds = prior(times, rows)
             found = activations_to_notes(
                 H, adapted.pitches, times, onset_threshold=thresholds,
                 offset_threshold=settings.offset_threshold, release_ratio=settings.release_ratio,
-                reonset_rise=settings.reonset_rise, min_duration=settings.min_duration,
+                reonset_rise=settings.reonset_rise, reonset_frames=settings.reonset_frames,
+                min_duration=settings.min_duration,
                 smoothing=settings.smoothing, polyphonic=preset.polyphonic, reference=peak,
                 onset_shift=settings.onset_shift, attack_fraction=settings.attack_fraction,
                 reonset_dip=settings.reonset_dip, local_window=settings.local_window,
-                local_floor=settings.local_floor,
+                local_floor=settings.local_floor, novelty=novelty, novelty_threshold=settings.novelty_threshold,
+                novelty_snap=settings.novelty_snap,
             )
             lo = (core_start - 0.5) * frame_seconds if b > 0 else -np.inf
             hi = (core_stop - 0.5) * frame_seconds if b + 1 < len(layout) else np.inf
