@@ -501,13 +501,18 @@ def test_json_schema_fields():
 
 
 def test_empty_take_reports_every_note_missed():
+    from takescribe.audio import TakescribeWarning
+
     ref = study(n_measures=2)
-    result = compare_notes(ref, None, [])
+    with pytest.warns(TakescribeWarning, match="no notes were heard"):
+        result = compare_notes(ref, None, [])
     assert kinds(result) == Counter({"missed": len(ref.notes)})
 
 
 def test_bad_options_and_inputs():
     ref = study(n_measures=2)
+    with pytest.raises(TypeError, match="judge_durations"):
+        compare_notes(ref, None, [], judge_durations="no")
     with pytest.raises(InputError, match="timing_tolerance"):
         compare_notes(ref, None, [], timing_tolerance=-0.1)
     with pytest.raises(InputError, match="neighbours"):

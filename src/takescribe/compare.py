@@ -106,12 +106,14 @@ in seconds at the written tempo, was played again.
 from __future__ import annotations
 
 import json
+import warnings
 from collections import Counter
 from dataclasses import dataclass, field
 from typing import Any, Callable, Sequence
 
 import numpy as np
 
+from .audio import TakescribeWarning
 from .errors import InputError
 from .evaluate import match_notes
 from .notes import Note, validate_notes
@@ -960,6 +962,11 @@ def compare_notes(
     part = _part_from_reference(reference)
     to_take = _score_to_take_function(alignment)
     n_ref, n_played = len(part.onsets), len(played)
+    if n_played == 0:
+        warnings.warn("no notes were heard in the take: every note of the part is reported missed",
+                      TakescribeWarning, stacklevel=2)
+    if n_ref == 0:
+        warnings.warn("the part has no notes: every played note is reported extra", TakescribeWarning, stacklevel=2)
 
     played_on = np.array([p.onset for p in played], dtype=float)
     played_off = np.array([p.offset for p in played], dtype=float)
