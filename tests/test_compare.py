@@ -523,3 +523,23 @@ def test_bad_options_and_inputs():
         compare_notes(ref, object(), [])
     with pytest.raises(TypeError, match="notes"):
         compare_notes(object(), None, [])
+
+
+def test_findings_do_not_depend_on_the_order_of_the_played_notes():
+    # property (as mir_eval's metrics are invariant to note order): same findings for any order
+    ref = study()
+    played = render(ref)
+    singles = _single_line(ref)
+    n = played[singles[6]]
+    played[singles[6]] = Note(n.onset + 0.2, n.offset + 0.2, n.pitch)
+    del played[singles[10]]
+    played.append(Note(5.1, 5.3, 88))
+    expected = sorted((f.kind, round(f.time, 6), f.expected_pitch, f.played_pitch) for f in compare_notes(ref, None, played).findings)
+    rng = np.random.default_rng(7)
+    for _ in range(3):
+        shuffled = [played[k] for k in rng.permutation(len(played))]
+        result = compare_notes(ref, None, shuffled)
+        assert sorted((f.kind, round(f.time, 6), f.expected_pitch, f.played_pitch) for f in result.findings) == expected
+        for f in result.findings:
+            if f.played_index is not None:
+                assert shuffled[f.played_index].pitch == f.played_pitch
