@@ -193,6 +193,25 @@ def test_silence_before_and_after(chorale, render_folder):
 
 
 @needs_fluidsynth
+@pytest.mark.parametrize("half", ["first", "second"])
+def test_take_of_only_part_of_the_piece(chorale, render_folder, half):
+    on, off, pitch = _arrays(chorale)
+    middle = chorale.quarters_to_seconds(chorale.measure_starts[len(chorale.measure_starts) // 2])
+    keep = on < middle if half == "first" else on >= middle
+    shift = 0.5 - on[keep][0]  # the take starts half a second before its first note
+    y = _render(render_folder, f"{half}_half", on[keep] + shift, off[keep] + shift, pitch[keep])
+    alignment = align_reference(y, SR, chorale)
+    err = np.abs(np.asarray(alignment.score_to_take(on[keep])) - (on[keep] + shift))
+    assert np.median(err) <= MEDIAN_LIMIT and np.percentile(err, 95) <= P95_LIMIT
+    # the path covers the half that was played, not the whole part squeezed into the take
+    covered = (alignment.score_times.min(), alignment.score_times.max())
+    if half == "first":
+        assert covered[1] < middle + 1.0
+    else:
+        assert covered[0] > middle - 1.0
+
+
+@needs_fluidsynth
 def test_another_piece_gets_low_confidence_and_a_warning(chorale, render_folder):
     other = load_reference(corpus.getWork("bach/bwv84.5"), part="Soprano")
     on, off, pitch = _arrays(other)
