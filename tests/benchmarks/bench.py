@@ -1,0 +1,398 @@
+"""Benchmark of takescribe on the fixture corpus: accuracy and speed.
+
+Usage::
+
+    python tests/benchmarks/bench.py [--split tuning|heldout|all] [--json out.json] [--force] [--quick] [--speed]
+
+Accuracy: every piece of the split is transcribed blind and score-informed (with its
+reference MusicXML) through :func:`takescribe.pipeline.transcribe_take`, and scored
+against its MAPS ground truth with :func:`takescribe.evaluate.evaluate_notes`
+(mir_eval conventions: onset F-measure with a 50 ms window, onset+offset
+F-measure, frame accuracy on a 10 ms grid). Printed per piece, per category
+(polyphonic piano, melody, adverse conditions) and as a one-line summary, with the
+real-time factor RTF = processing seconds / audio seconds (processing = the
+transcription of the loaded take, alignment included for informed runs; file
+reading excluded). A short warm-up transcription runs first and its time is reported
+apart as the cold start (librosa's imports and compilation).
+
+``--quick`` takes one piece per category. ``--speed`` adds, in the same run:
+
+(a) RTF of the whole pipeline, blind and score-informed, on 1- and 10-minute takes
+    made by concatenating the corpus piano pieces (audio) and their parts (scores);
+(b) our engine against scikit-learn's ``non_negative_factorization`` (solver 'mu',
+    KL, dictionary fixed via ``update_H=False`` on the transposed problem, same
+    start, same iterations) on the same matrices: time ratio, final-cost difference;
+(c) our engine's float32 FLOP rate (4·F·K·T flops per H-only KL iteration) as a
+    fraction of a plain numpy float32 product of the same size, timed in this run;
+(d) peak resident memory (``resource.getrusage(RUSAGE_SELF).ru_maxrss`` in a fresh
+    subprocess per take length) for blind transcription of 1-, 10- and 60-minute takes.
+
+Nothing here is collected by pytest (the file name has no ``test_`` prefix).
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import json
+import os
+import platform
+import resource
+import subprocess
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[2]
+CORPUS = ROOT / "fixtures" / "corpus"
+CATEGORY_LABELS = {"piano": "polyphonic piano", "melody": "melody", "adverse": "adverse conditions"}
+METRICS = ("onset.f_measure", "onset_offset.f_measure", "frame.accuracy")
+SHORT = {"onset.f_measure": "onset F", "onset_offset.f_measure": "on+off F", "frame.accuracy": "frame acc"}
+
+
+def _imports():
+    from takescribe.evaluate import evaluate_notes
+    from takescribe.noteio import read_maps
+    from takescribe.pipeline import load_take, transcribe_take
+    from takescribe.score import load_reference
+
+    return evaluate_notes, read_maps, load_take, transcribe_take, load_reference
+
+
+# ----------------------------------------------------------------------------- accuracy
+
+
+def run_piece(entry: dict) -> dict:
+    """Blind and informed runs of one corpus piece, with scores and RTF."""
+    evaluate_notes, read_maps, load_take, transcribe_take, load_reference = _imports()
+    files = entry["files"]
+    y, sr = load_take(CORPUS / files["audio"])
+    seconds = len(y) / sr
+    truth = read_maps(CORPUS / files["notes"])
+    reference = load_reference(CORPUS / files["score"])
+    row = {"name": entry["name"], "split": entry["split"], "category": entry["category"], "audio_seconds": seconds}
+    for mode in ("blind", "informed"):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            t0 = time.perf_counter()
+            result, _ = transcribe_take(y, sr, instrument=entry["instrument_program"],
+                                        reference=reference if mode == "informed" else None)
+            elapsed = time.perf_counter() - t0
+        scores = evaluate_notes(truth, result.notes)
+        row[mode] = {**{m: float(scores[m]) for m in METRICS}, "seconds": elapsed, "rtf": elapsed / seconds,
+                     "notes": len(result.notes)}
+    return row
+
+
+def summarize(rows: list[dict]) -> dict:
+    """Mean scores and pooled RTF (sum of seconds / sum of audio seconds) per category and overall."""
+    out = {}
+    groups = {c: [r for r in rows if r["category"] == c] for c in CATEGORY_LABELS}
+    groups["all"] = rows
+    for name, group in groups.items():
+        if not group:
+            continue
+        audio = sum(r["audio_seconds"] for r in group)
+        out[name] = {mode: {**{m: float(np.mean([r[mode][m] for r in group])) for m in METRICS},
+                            "rtf": sum(r[mode]["seconds"] for r in group) / audio}
+                     for mode in ("blind", "informed")}
+        out[name]["pieces"] = len(group)
+    return out
+
+
+def print_accuracy(rows: list[dict], summary: dict) -> None:
+    head = f"{'piece':32s} {'mode':8s} " + " ".join(f"{SHORT[m]:>9s}" for m in METRICS) + f" {'RTF':>7s}"
+    print(head)
+    print("-" * len(head))
+    for r in rows:
+        for mode in ("blind", "informed"):
+            print(f"{r['name'] if mode == 'blind' else '':32s} {mode:8s} "
+                  + " ".join(f"{r[mode][m]:9.3f}" for m in METRICS) + f" {r[mode]['rtf']:7.3f}")
+    print()
+    print(f"{'category':32s} {'mode':8s} " + " ".join(f"{SHORT[m]:>9s}" for m in METRICS) + f" {'RTF':>7s}")
+    for name, block in summary.items():
+        label = CATEGORY_LABELS.get(name, "all pieces") + f" ({block['pieces']})"
+        for mode in ("blind", "informed"):
+            print(f"{label if mode == 'blind' else '':32s} {mode:8s} "
+                  + " ".join(f"{block[mode][m]:9.3f}" for m in METRICS) + f" {block[mode]['rtf']:7.3f}")
+
+
+# ----------------------------------------------------------------------------- long takes
+
+
+def concatenated_take(minutes: float, *, gap: float = 1.0):
+    """A long piano take and its part: the corpus piano pieces one after another, cycled.
+
+    Each piece's audio is placed at an offset; its part's notes are shifted by the same
+    seconds and by the matching number of quarters at the piece's first tempo, with a
+    tempo change at each junction so score seconds and take seconds agree.
+    """
+    from takescribe.pipeline import load_take
+    from takescribe.score import Reference, load_reference
+
+    entries = [e for e in json.loads((CORPUS / "index.json").read_text()) if e["category"] == "piano"]
+    pieces = []
+    for e in entries:
+        y, sr = load_take(CORPUS / e["files"]["audio"])
+        pieces.append((y, sr, load_reference(CORPUS / e["files"]["score"])))
+    sr = pieces[0][1]
+    total = int(minutes * 60 * sr)
+    audio = np.zeros(total, np.float32)
+    notes, tempo_map, signatures, measure_starts, labels = [], [], [], [], []
+    offset_s, offset_q, measure = 0.0, 0.0, 0
+    k = 0
+    while True:
+        y, _, ref = pieces[k % len(pieces)]
+        k += 1
+        start = int(round(offset_s * sr))
+        if start >= total:
+            break
+        seg = y[: total - start]
+        audio[start: start + len(seg)] += seg
+        bpm = ref.tempo_map[0][1]
+        for q, b in ref.tempo_map:
+            tempo_map.append((offset_q + q, b))
+        for q, num, den in ref.time_signatures:
+            signatures.append((offset_q + q, num, den))
+        for n in ref.notes:
+            notes.append(dataclasses.replace(n, onset_quarters=n.onset_quarters + offset_q, onset=n.onset + offset_s,
+                                             offset=n.offset + offset_s, measure=n.measure + measure,
+                                             measure_label=str(n.measure + measure), index=len(notes)))
+        measure_starts.extend(offset_q + q for q in ref.measure_starts[:-1])
+        labels.extend(str(measure + i + 1) for i in range(len(ref.measure_starts) - 1))
+        measure += len(ref.measure_starts) - 1
+        # the next piece starts after this one's audio and its part, plus a gap, at a whole quarter
+        span_s = max(len(y) / sr, ref.quarters_to_seconds(ref.measure_starts[-1])) + gap
+        last_bpm = ref.tempo_map[-1][1]
+        end_q_piece = ref.measure_starts[-1]
+        end_s_piece = ref.quarters_to_seconds(end_q_piece)
+        span_q = end_q_piece + (span_s - end_s_piece) * last_bpm / 60.0
+        offset_q += span_q
+        offset_s += span_s
+        del bpm
+    notes = [n for n in notes if n.offset <= minutes * 60]
+    notes = [dataclasses.replace(n, index=i) for i, n in enumerate(notes)]
+    first = pieces[0][2]
+    reference = Reference(notes=tuple(notes), tempo_map=tuple(tempo_map), time_signatures=tuple(signatures),
+                          measure_starts=tuple(measure_starts) + (offset_q,), key_fifths=first.key_fifths,
+                          part_name="concatenated piano pieces", instrument_name=first.instrument_name,
+                          midi_program=0, source="bench:concatenated", measure_labels=tuple(labels))
+    return audio, sr, reference
+
+
+def speed_pipeline(minutes_list=(1, 10)) -> dict:
+    from takescribe.pipeline import transcribe_take
+
+    out = {}
+    for minutes in minutes_list:
+        y, sr, reference = concatenated_take(minutes)
+        seconds = len(y) / sr
+        row = {"audio_seconds": seconds}
+        for mode in ("blind", "informed"):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                t0, c0 = time.perf_counter(), time.process_time()
+                result, _ = transcribe_take(y, sr, instrument=0, reference=reference if mode == "informed" else None)
+                elapsed, cpu = time.perf_counter() - t0, time.process_time() - c0
+            row[mode] = {"seconds": elapsed, "rtf": elapsed / seconds, "cpu_seconds": cpu, "cpu_rtf": cpu / seconds,
+                         "notes": len(result.notes), "timings": {k: float(v) for k, v in result.timings.items()}}
+            print(f"  {minutes:3d} min {mode:8s}: {elapsed:7.1f} s wall (RTF {elapsed / seconds:.3f}),"
+                  f" {cpu:7.1f} s CPU (RTF {cpu / seconds:.3f}); {len(result.notes)} notes", flush=True)
+        out[f"{minutes}min"] = row
+    return out
+
+
+# ----------------------------------------------------------------------------- engine
+
+
+def _problem():
+    """The factorization of a corpus piano piece: normalised V and dictionary with noise templates."""
+    from takescribe.dictionary import harmonic_dictionary
+    from takescribe.pipeline import load_take
+    from takescribe.spectrogram import compute_spectrogram
+    from takescribe.transcription import _noise_templates, normalize_spectrogram
+
+    y, sr = load_take(CORPUS / "tuning" / "piano_scales.flac")
+    y = np.tile(y, 3)  # ~34 s: T large enough for steady timings
+    spec = compute_spectrogram(y, sr)
+    V, _ = normalize_spectrogram(spec.V)
+    W = np.hstack([harmonic_dictionary(spec, instrument=0).W, _noise_templates(V.shape[0], 3)]).astype(np.float32)
+    return np.ascontiguousarray(V, dtype=np.float32), W
+
+
+def _best_of(fn, repeats: int) -> float:
+    best = np.inf
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def speed_engine(n_iter: int = 100, repeats: int = 3) -> dict:
+    from sklearn.decomposition import non_negative_factorization
+    from threadpoolctl import threadpool_limits
+
+    from takescribe.nmf import beta_divergence, decompose
+
+    V, W = _problem()
+    F, T = V.shape
+    K = W.shape[1]
+    H0 = np.full((K, T), np.sqrt(V.mean() / K), np.float32)
+    ours = lambda: decompose(V, W, beta=1.0, n_iter=n_iter, tol=0, H_init=H0)  # noqa: E731
+    # scikit-learn factorizes X ≈ A·B; with update_H=False B (our W.T) stays fixed and A (our H.T)
+    # starts from the constant sqrt(mean(X) / n_components), the start we give ours above.
+    theirs = lambda: non_negative_factorization(  # noqa: E731
+        V.T, H=W.T.copy(), n_components=K, init="custom", update_H=False, solver="mu",
+        beta_loss="kullback-leibler", max_iter=n_iter, tol=0, alpha_W=0.0, alpha_H=0.0)
+    H_ours = ours().H
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        A = theirs()[0]
+        t_theirs_default = _best_of(theirs, repeats)
+        with threadpool_limits(1, user_api="blas"):
+            t_theirs_one = _best_of(theirs, repeats)
+    t_ours = _best_of(ours, repeats)
+    cost_ours = beta_divergence(V, W @ H_ours, 1.0)
+    cost_theirs = beta_divergence(V, W @ A.T, 1.0)
+    # plain numpy float32 product of the same size, default threads and one thread
+    Hr = np.ascontiguousarray(H_ours)
+    out = np.empty_like(V)
+    mm = lambda: np.matmul(W, Hr, out=out)  # noqa: E731
+    mm()
+    t_mm = _best_of(mm, 20)
+    with threadpool_limits(1, user_api="blas"):
+        t_mm_one = _best_of(mm, 20)
+    flops_iter = 4.0 * F * K * T
+    ours_rate = flops_iter * n_iter / t_ours
+    mm_rate, mm_one_rate = 2.0 * F * K * T / t_mm, 2.0 * F * K * T / t_mm_one
+    result = {
+        "shape": {"n_bins": F, "n_pitches": K, "n_frames": T}, "n_iter": n_iter,
+        "ours_seconds": t_ours, "sklearn_seconds": t_theirs_default, "sklearn_one_thread_seconds": t_theirs_one,
+        "speedup_vs_sklearn": t_theirs_default / t_ours, "speedup_vs_sklearn_one_thread": t_theirs_one / t_ours,
+        "cost_ours": cost_ours, "cost_sklearn": cost_theirs,
+        "cost_relative_difference": (cost_ours - cost_theirs) / cost_theirs,
+        "ours_gflops": ours_rate / 1e9, "numpy_matmul_gflops": mm_rate / 1e9,
+        "numpy_matmul_one_thread_gflops": mm_one_rate / 1e9,
+        "flop_fraction_of_matmul": ours_rate / mm_rate, "flop_fraction_of_one_thread_matmul": ours_rate / mm_one_rate,
+    }
+    print(f"  engine vs scikit-learn ({F}x{K}x{T}, {n_iter} KL iterations): ours {t_ours:.3f} s,"
+          f" scikit-learn {t_theirs_default:.3f} s (one BLAS thread {t_theirs_one:.3f} s):"
+          f" {result['speedup_vs_sklearn']:.1f}x ({result['speedup_vs_sklearn_one_thread']:.1f}x);"
+          f" final cost {cost_ours:.6g} vs {cost_theirs:.6g} ({100 * result['cost_relative_difference']:+.4f} %)")
+    print(f"  FLOP rate: ours {ours_rate / 1e9:.1f} GFLOP/s; numpy matmul {mm_rate / 1e9:.1f} GFLOP/s"
+          f" ({100 * result['flop_fraction_of_matmul']:.0f} %), one thread {mm_one_rate / 1e9:.1f} GFLOP/s"
+          f" ({100 * result['flop_fraction_of_one_thread_matmul']:.0f} %)", flush=True)
+    return result
+
+
+# ----------------------------------------------------------------------------- memory
+
+_MEMORY_CHILD = r"""
+import json, resource, sys, time, warnings
+import numpy as np
+from takescribe.pipeline import load_take, transcribe_take
+minutes = float(sys.argv[1])
+y, sr = load_take(sys.argv[2])
+n = int(minutes * 60 * sr)
+y = np.resize(y, n).astype(np.float32)
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+t0 = time.perf_counter()
+with warnings.catch_warnings():
+    warnings.simplefilter("ignore")
+    result, _ = transcribe_take(y, sr, instrument=0)
+elapsed = time.perf_counter() - t0
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+print(json.dumps({"minutes": minutes, "rss_before_kb": before, "peak_rss_kb": peak, "seconds": elapsed,
+                  "audio_mb": y.nbytes / 2**20, "notes": len(result.notes)}))
+"""
+
+
+def speed_memory(minutes_list=(1, 10, 60)) -> dict:
+    out = {}
+    take = CORPUS / "tuning" / "piano_scales.flac"
+    for minutes in minutes_list:
+        proc = subprocess.run([sys.executable, "-c", _MEMORY_CHILD, str(minutes), str(take)], capture_output=True,
+                              text=True, cwd=ROOT)
+        if proc.returncode != 0:
+            out[f"{minutes}min"] = {"error": proc.stderr.strip().splitlines()[-1:]}
+            print(f"  {minutes} min: failed: {proc.stderr.strip()[-300:]}")
+            continue
+        row = json.loads(proc.stdout.strip().splitlines()[-1])
+        row["peak_rss_mb"] = row["peak_rss_kb"] / 1024  # ru_maxrss is in kilobytes on Linux
+        row["rss_before_mb"] = row["rss_before_kb"] / 1024
+        out[f"{minutes}min"] = row
+        print(f"  {minutes:3d} min blind: peak RSS {row['peak_rss_mb']:.0f} MB (with the take loaded before"
+              f" transcription: {row['rss_before_mb']:.0f} MB, audio {row['audio_mb']:.0f} MB); {row['seconds']:.1f} s",
+              flush=True)
+    return out
+
+
+# ----------------------------------------------------------------------------- main
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--split", choices=("tuning", "heldout", "all"), default="all")
+    parser.add_argument("--json", help="write the figures to this JSON file")
+    parser.add_argument("--force", action="store_true", help="overwrite --json if it exists")
+    parser.add_argument("--quick", action="store_true", help="one piece per category")
+    parser.add_argument("--speed", action="store_true", help="add the speed section (several minutes)")
+    args = parser.parse_args(argv)
+    if args.json:
+        from takescribe.safeio import check_writable
+
+        check_writable(args.json, force=args.force)
+
+    entries = json.loads((CORPUS / "index.json").read_text())
+    if args.split != "all":
+        entries = [e for e in entries if e["split"] == args.split]
+    if args.quick:
+        entries = [next(e for e in entries if e["category"] == c) for c in CATEGORY_LABELS
+                   if any(e["category"] == c for e in entries)]
+    machine = {"python": platform.python_version(), "cpus": os.cpu_count(), "load_average": os.getloadavg(),
+               "platform": platform.platform()}
+    print(f"takescribe benchmark: {len(entries)} pieces ({args.split}); {os.cpu_count()} CPUs,"
+          f" load average {os.getloadavg()[0]:.1f}", flush=True)
+
+    # warm-up: the first transcription of a process pays librosa's imports and compilation
+    _, _, load_take, transcribe_take, _ = _imports()
+    t0 = time.perf_counter()
+    y, sr = load_take(CORPUS / entries[0]["files"]["audio"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        transcribe_take(y[: 2 * sr], sr, instrument=entries[0]["instrument_program"])
+    cold = time.perf_counter() - t0
+    print(f"cold start (first 2 s transcription of the process): {cold:.1f} s\n", flush=True)
+
+    t_all = time.perf_counter()
+    rows = [run_piece(e) for e in entries]
+    summary = summarize(rows)
+    print_accuracy(rows, summary)
+    whole = summary["all"]
+    print(f"\nsummary: {len(rows)} pieces; onset F blind {whole['blind']['onset.f_measure']:.3f}, informed"
+          f" {whole['informed']['onset.f_measure']:.3f}; RTF blind {whole['blind']['rtf']:.3f}, informed"
+          f" {whole['informed']['rtf']:.3f}; {time.perf_counter() - t_all:.0f} s", flush=True)
+    report = {"machine": machine, "split": args.split, "cold_start_seconds": cold, "pieces": rows,
+              "categories": summary}
+    if args.speed:
+        print("\nspeed: whole pipeline on long takes (concatenated piano pieces and parts)", flush=True)
+        report["speed"] = {"pipeline": speed_pipeline()}
+        print("speed: engine", flush=True)
+        report["speed"]["engine"] = speed_engine()
+        print("speed: peak memory (fresh subprocess per length)", flush=True)
+        report["speed"]["memory"] = speed_memory()
+        report["machine"]["load_average_end"] = os.getloadavg()
+    if args.json:
+        from takescribe.safeio import write_text
+
+        write_text(args.json, json.dumps(report, indent=1, default=float) + "\n", force=args.force)
+        print(f"wrote {args.json}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
