@@ -224,7 +224,7 @@ class Finding:
         }
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Comparison:
     """Result of :func:`compare_notes`.
 
