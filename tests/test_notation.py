@@ -255,7 +255,7 @@ def note_table(score: stream.Score) -> list[tuple]:
     return sorted(longest.values())
 
 
-def perform(score: stream.Score, *, seed: int = 0, jitter: float = 0.005) -> list[Note]:
+def perform(score: stream.Score, *, seed: int = 0, jitter: float = 0.005, accent: bool = True) -> list[Note]:
     """Notes in seconds at quarter = 100: exact onsets plus seeded jitter (a few ms), each note
     released 30 ms early (so repeated notes re-strike), a little louder on the first beat of a
     bar (metric accent: common practice, no source)."""
@@ -270,7 +270,7 @@ def perform(score: stream.Score, *, seed: int = 0, jitter: float = 0.005) -> lis
                 continue
             on = float(el.offset) * QUARTER_SECONDS
             off = on + float(el.quarterLength) * QUARTER_SECONDS - 0.03
-            vel = 84 if float(el.offset) in starts else 70
+            vel = 84 if accent and float(el.offset) in starts else 70 + (6 if not accent else 0)
             for p in el.pitches:
                 j = rng.normal(0, jitter, 2)
                 out.append(Note(max(on + j[0], 0.0), off + j[1], p.midi, vel))
