@@ -992,7 +992,7 @@ def compare_notes(
         found = _find_restarts(part, played_on, played_off, played_pitch, anchors, predicted,
                                min_restart_notes=min_restart_notes, ignore=set(abandoned_owner),
                                used_refs={i for r in restarts for i, _ in r.resumed_pairs + r.voter_pairs},
-                               slope=default_slope)
+                               slope=default_slope if _round == 0 else model.default_slope)
         for r in found:
             for j in r.abandoned:
                 abandoned_owner.setdefault(j, len(restarts))
