@@ -25,6 +25,7 @@ because the part does not have it.
 
 from __future__ import annotations
 
+import dataclasses
 from typing import Callable
 
 import numpy as np
@@ -42,7 +43,7 @@ __all__ = ["score_mask", "informed_transcription", "INFORMED_DEFAULTS"]
 # tuned on the deviation takes of the cello ballad, flute and piano march (see DEVELOPERS.md);
 # confirmed on the piano waltz and violin minuet
 INFORMED_DEFAULTS = {"tolerance": 0.1, "floor": 0.3, "mask_penalty": 0.1, "unexpected_factor": 1.0,
-                     "expected_factor": 0.5}
+                     "expected_factor": 0.5, "ghost_ratio": 0.8}
 _GRID = 0.01  # seconds per cell of the score piano roll
 
 
@@ -122,6 +123,7 @@ def informed_transcription(
     mask_penalty: float = INFORMED_DEFAULTS["mask_penalty"],
     unexpected_factor: float = INFORMED_DEFAULTS["unexpected_factor"],
     expected_factor: float = INFORMED_DEFAULTS["expected_factor"],
+    ghost_ratio: float = INFORMED_DEFAULTS["ghost_ratio"],
     progress: Callable[[str], None] | None = None,
 ) -> Transcription:
     """Transcribe a take guided by its reference part (see the module docstring).
@@ -144,6 +146,10 @@ def informed_transcription(
         Onset threshold multiplier where the part does not expect the pitch (>= 1).
     expected_factor : float
         Onset threshold multiplier where the part expects the pitch (<= 1).
+    ghost_ratio : float
+        Unwritten notes on the 2nd–4th partial of a louder note starting with them are
+        dropped when quieter than this fraction of it
+        (:func:`takescribe.tracking.suppress_harmonic_ghosts`); written notes never are.
 
     Returns
     -------
@@ -174,6 +180,7 @@ def informed_transcription(
     thresholds = np.where(mask >= 1.0, settings.onset_threshold * expected_factor,
                           settings.onset_threshold * unexpected_factor)
     return transcribe(
-        y, sr, instrument=preset, dictionary=dictionary, settings=settings, mask=mask, mask_penalty=mask_penalty,
+        y, sr, instrument=preset, dictionary=dictionary, mask=mask, mask_penalty=mask_penalty,
         onset_thresholds=thresholds, spectrogram=spectrogram, progress=progress, pitches=mask_pitches,
+        ghost_exempt=mask >= 1.0, settings=dataclasses.replace(settings, ghost_ratio=ghost_ratio),
     )

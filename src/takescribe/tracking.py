@@ -37,7 +37,8 @@ import scipy.ndimage
 from .errors import InputError
 from .notes import Note, sort_notes
 
-__all__ = ["activations_to_notes", "monophonic_activations", "pitch_novelty", "validate_activations"]
+__all__ = ["activations_to_notes", "monophonic_activations", "pitch_novelty", "suppress_harmonic_ghosts",
+           "validate_activations"]
 
 
 def validate_activations(H: np.ndarray, pitches: np.ndarray, frame_times: np.ndarray) -> None:
@@ -292,3 +293,49 @@ def activations_to_notes(
                 velocity = int(np.clip(round(127 * np.sqrt(min(loudness, 1.0))), 1, 127))
                 notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), int(pitches[k]), velocity))
     return sort_notes(notes)
+
+
+def suppress_harmonic_ghosts(
+    notes: list[Note],
+    *,
+    ratio: float = 0.8,
+    window: float = 0.06,
+    intervals: tuple[int, ...] = (12, 19, 24),
+    exempt=None,
+) -> list[Note]:
+    """Drop weak notes that sit on a partial of a stronger note starting with them.
+
+    A harmonic dictionary explains the 2nd, 3rd and 4th partials of a note (an octave,
+    an octave and a fifth, two octaves up) partly with the templates of those pitches,
+    so a loud bass note leaves quieter "ghost" notes above it. A note at pitch *p* is
+    dropped when a note at *p − 12*, *p − 19* or *p − 24* starts within ``window``
+    seconds of it and the candidate's velocity is below ``ratio`` times that note's.
+    Real octave doublings played as loudly survive.
+
+    Parameters
+    ----------
+    notes : list of Note
+    ratio : float
+        0 disables the filter.
+    window : float
+        Seconds between the two onsets.
+    intervals : tuple of int
+        Semitones above the lower note that count as its partials.
+    exempt : callable (Note) -> bool, optional
+        Notes for which it returns True are kept (e.g. notes the score expects).
+    """
+    if ratio <= 0 or len(notes) < 2:
+        return list(notes)
+    ordered = sort_notes(notes)
+    onsets = np.array([n.onset for n in ordered])
+    keep = []
+    for i, n in enumerate(ordered):
+        lo, hi = np.searchsorted(onsets, [n.onset - window, n.onset + window + 1e-9])
+        ghost = any(
+            ordered[j].pitch in {n.pitch - d for d in intervals} and n.velocity < ratio * ordered[j].velocity
+            for j in range(lo, hi) if j != i
+        )
+        if ghost and not (exempt is not None and exempt(n)):
+            continue
+        keep.append(n)
+    return keep

@@ -21,7 +21,7 @@ from .instruments import Instrument, resolve_instrument
 from .nmf import Factorization, decompose
 from .notes import Note
 from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
-from .tracking import activations_to_notes, pitch_novelty
+from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 
 __all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "DEFAULT_SETTINGS",
            "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram"]
@@ -73,6 +73,7 @@ class TranscriptionSettings:
     use_novelty: bool = False
     novelty_threshold: float = 0.5
     novelty_snap: float = 0.1
+    ghost_ratio: float = 0.0
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
@@ -81,7 +82,7 @@ DEFAULT_SETTINGS = TranscriptionSettings()
 # polyphonic tracking is stricter; melodic decoding already keeps one pitch a frame.
 POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.3, min_duration=0.06, release_ratio=0.2,
                                             reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
-                                            use_novelty=False)
+                                            use_novelty=False, ghost_ratio=0.7)
 MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06, release_ratio=0.2,
                                          reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
                                          use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5)
@@ -156,6 +157,7 @@ def transcribe(
     spectrogram: Spectrogram | None = None,
     progress: Callable[[str], None] | None = None,
     pitches: np.ndarray | None = None,
+    ghost_exempt: np.ndarray | None = None,
 ) -> Transcription:
     """Transcribe a mono signal into note events (blind, or guided by a mask on H).
 
@@ -183,6 +185,9 @@ def transcribe(
         MIDI pitches of the templates (default: the instrument's range). ``mask`` and
         ``onset_thresholds`` rows follow these pitches (only those on the frequency
         axis are kept, in order).
+    ghost_exempt : np.ndarray of bool (n_pitches, n_frames), optional
+        Where a note is never dropped as a harmonic ghost (score-informed: where the
+        part expects the pitch). Rows follow ``pitches`` like ``mask``.
 
     Returns
     -------
@@ -209,6 +214,8 @@ def transcribe(
             mask = mask[rows]
         if onset_thresholds is not None:
             onset_thresholds = onset_thresholds[rows]
+        if ghost_exempt is not None:
+            ghost_exempt = ghost_exempt[rows]
     V, _ = normalize_spectrogram(spectrogram.V)
     empty = np.zeros((initial.n_pitches, spectrogram.n_frames), np.float32)
     if not np.any(V):
@@ -257,6 +264,16 @@ def transcribe(
         novelty_threshold=settings.novelty_threshold,
         novelty_snap=settings.novelty_snap,
     )
+    exempt = None
+    if ghost_exempt is not None:
+        rows = {int(p): k for k, p in enumerate(final_dictionary.pitches)}
+        times = spectrogram.frame_times
+
+        def exempt(note):
+            k = rows.get(note.pitch)
+            f = min(int(np.searchsorted(times, note.onset)), len(times) - 1)
+            return k is not None and bool(ghost_exempt[k, f])
+    notes = suppress_harmonic_ghosts(notes, ratio=settings.ghost_ratio, exempt=exempt)
     timings["tracking"] = time.perf_counter() - t0
     return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H[:K], preset, timings)
 

@@ -25,7 +25,7 @@ from takescribe.audio import load_audio
 from takescribe.evaluate import note_scores
 from takescribe.instruments import resolve_instrument
 from takescribe.noteio import read_maps
-from takescribe.tracking import activations_to_notes, pitch_novelty
+from takescribe.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 from takescribe.transcription import normalize_spectrogram, settings_for, transcribe
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -38,6 +38,7 @@ def main(argv=None) -> int:
     parser.add_argument("--factorization", default="{}")
     parser.add_argument("--grid", default='{"onset_threshold": [0.15, 0.2, 0.25]}')
     parser.add_argument("--category", default=None)
+    parser.add_argument("--offsets", action="store_true", help="score onset+offset F-measure instead of onset only")
     args = parser.parse_args(argv)
     index = json.loads((CORPUS / "index.json").read_text())
     entries = [e for e in index if e["split"] == args.split and (args.category in (None, e["category"]))]
@@ -67,10 +68,11 @@ def main(argv=None) -> int:
                 onset_shift=s.onset_shift, attack_fraction=s.attack_fraction, reonset_dip=s.reonset_dip,
                 local_window=s.local_window, local_floor=s.local_floor, novelty=nov if s.use_novelty else None,
                 novelty_threshold=s.novelty_threshold, novelty_snap=s.novelty_snap)
+            notes = suppress_harmonic_ghosts(notes, ratio=s.ghost_ratio)
             import warnings
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                per[e["name"]] = (e["category"], note_scores(ref, notes, with_offsets=False).f_measure)
+                per[e["name"]] = (e["category"], note_scores(ref, notes, with_offsets=args.offsets).f_measure)
         cats = {}
         for cat, f in per.values():
             cats.setdefault(cat, []).append(f)
