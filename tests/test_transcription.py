@@ -33,16 +33,16 @@ INDEX = {e["name"]: e for e in json.loads((CORPUS / "index.json").read_text())}
 
 # piece: measured onset F-measure (held-out split)
 MEASURED = {
-    "piano_arpeggios": 0.922,
-    "piano_block_chords": 0.776,
+    "piano_arpeggios": 0.931,
+    "piano_block_chords": 0.762,
     "piano_sustained_bass": 0.907,
-    "piano_chorale_bwv269": 0.884,
+    "piano_chorale_bwv269": 0.860,
     "melody_clarinet_tune": 0.952,
     "melody_altosax_jig": 0.959,
     "melody_violin_bwv153_1": 1.000,
     "melody_guitar_jig": 0.790,
     "adverse_reverb_clarinet_tune": 0.850,
-    "adverse_detune445_arpeggios": 0.857,
+    "adverse_detune445_arpeggios": 0.875,
     "adverse_fast_altosax_jig": 0.951,
     "adverse_mixed_guitar_jig": 0.714,
 }
