@@ -96,3 +96,23 @@ def test_a_note_across_a_block_edge_is_neither_split_nor_doubled():
     assert [n.pitch for n in result.notes] == [69]
     note = result.notes[0]
     assert abs(note.onset - 1.0) < 0.1 and abs(note.offset - 4.0) < 0.15
+
+
+@pytest.mark.parametrize("mask_penalty", [0.0, 0.5])
+def test_engine_column_slabs_equal_one_thread(monkeypatch, mask_penalty):
+    # The property blocks rely on (frames independent once W is fixed) also lets the engine split
+    # the frames into slabs, one thread each: the result must be that of the one-thread loop.
+    from takescribe import nmf
+
+    rng = np.random.default_rng(3)
+    W = (rng.random((60, 8)) + 0.05).astype(np.float32)
+    V = (W @ (rng.random((8, 1500)) * (rng.random((8, 1500)) > 0.6)) + 0.01).astype(np.float32)
+    mask = (rng.random((8, 1500)) > 0.3).astype(np.float32)
+    runs = {}
+    for threads in (1, 2, 3):
+        monkeypatch.setattr(nmf, "_engine_threads", lambda n_frames, threads=threads: threads)
+        runs[threads] = nmf.decompose(V, W, n_iter=40, tol=1e-3, mask=mask, mask_penalty=mask_penalty)
+    for threads in (2, 3):
+        assert runs[threads].n_iter == runs[1].n_iter and runs[threads].converged == runs[1].converged
+        np.testing.assert_allclose(runs[threads].H, runs[1].H, rtol=1e-5, atol=1e-9)
+        np.testing.assert_allclose(runs[threads].costs, runs[1].costs, rtol=1e-6)

@@ -20,7 +20,8 @@ Conventions
   β-divergence alone (Lee and Seung 2001 for β ∈ {1, 2}; Févotte and Idier 2011
   for 1 ≤ β ≤ 2) and carries no such proof with the penalties.
 - Convergence: the relative decrease of the cost, checked every ``check_every``
-  iterations, below ``tol``.
+  iterations, below ``tol``. Costs are evaluated in V's dtype and summed in float64
+  (:func:`beta_divergence`, in float64 throughout, is the reference the tests use).
 
 References
 ----------
@@ -34,6 +35,9 @@ the β-divergence. Neural Computation 23(9), 2421–2456.
 from __future__ import annotations
 
 import contextlib
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -223,6 +227,119 @@ def _divergence_from_model(V: np.ndarray, Lam: np.ndarray, beta: float, *, work:
     return (data + (beta - 1) * model - beta * cross) / (beta * (beta - 1))
 
 
+def _update_H(V, W, W_colsum, WtV, H, Lam, work, num, den, *, beta, mask_term, eps, penalty=None) -> None:
+    """One multiplicative update of H in place, given ``Lam = max(W H, eps)`` (which it overwrites)."""
+    if beta == 1.0:
+        np.divide(V, Lam, out=Lam)
+        np.matmul(W.T, Lam, out=num)
+        den[...] = W_colsum[:, None]
+    elif beta == 2.0:
+        np.matmul(W.T, V, out=num) if WtV is None else np.copyto(num, WtV)
+        np.matmul(W.T, Lam, out=den)
+    else:
+        np.power(Lam, beta - 2.0, out=work)
+        work *= V
+        np.matmul(W.T, work, out=num)
+        Lam **= beta - 1.0
+        np.matmul(W.T, Lam, out=den)
+    if penalty is not None:
+        penalty(den, num)
+    if mask_term is not None:
+        den += mask_term
+    np.maximum(den, eps, out=den)
+    num /= den
+    H *= num
+
+
+#: Fewest frames per thread worth a thread of its own (smaller slabs make BLAS less efficient).
+MIN_FRAMES_PER_THREAD = 512
+
+
+def _engine_threads(n_frames: int) -> int:
+    """Threads for a fixed-W factorization: the BLAS thread budget of the process, one slab each.
+
+    A caller that limits BLAS to one thread (``threadpoolctl.threadpool_limits(1)``,
+    as batch workers do) gets one thread here too.
+    """
+    global _CONTROLLER
+    try:
+        if _CONTROLLER is None:
+            from threadpoolctl import ThreadpoolController
+
+            _CONTROLLER = ThreadpoolController()
+        budget = max([lib.num_threads for lib in _CONTROLLER.lib_controllers if lib.user_api == "blas"], default=1)
+    except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
+        budget = 1
+    return int(max(1, min(budget, os.cpu_count() or 1, n_frames // MIN_FRAMES_PER_THREAD)))
+
+
+def _decompose_slabs(V, W, H, *, beta, n_iter, tol, check_every, mask_term, eps, threads):
+    """The fixed-W, unpenalized iterations on column slabs of H, one thread per slab.
+
+    Each thread owns its slab's buffers and runs the same updates as the one-thread
+    loop; at each check the threads add their slab costs (a barrier) and all take the
+    same stop decision. Returns ``(costs, n_iter_run, converged)``; H is updated in place.
+    """
+    T = V.shape[1]
+    edges = np.linspace(0, T, threads + 1).round().astype(int)
+    W_colsum = W.sum(axis=0)
+    WtV_all = None
+    partial = np.zeros((2, threads))  # double-buffered by check parity
+    barrier = threading.Barrier(threads)
+    outcome = {}
+
+    def run(i: int) -> None:
+        try:
+            _run(i)
+        except BaseException:
+            barrier.abort()  # the other threads stop waiting at the next check
+            raise
+
+    def _run(i: int) -> None:
+        cols = slice(edges[i], edges[i + 1])
+        Vc = np.ascontiguousarray(V[:, cols])
+        Hc = np.ascontiguousarray(H[:, cols])
+        mc = None if mask_term is None else np.ascontiguousarray(mask_term[:, cols])
+        Lam, work = np.empty_like(Vc), np.empty_like(Vc)
+        num, den = np.empty_like(Hc), np.empty_like(Hc)
+        WtV = W.T @ Vc if beta == 2 else WtV_all
+        v_sum = v_log_v = 0.0
+        if beta == 1:
+            v_sum = float(Vc.sum(dtype=np.float64))
+            np.maximum(Vc, np.finfo(Vc.dtype).tiny, out=work)
+            np.log(work, out=work)
+            work *= Vc
+            v_log_v = float(work.sum(dtype=np.float64))
+        costs, previous, check, it, converged = [], None, 0, 0, False
+        while True:
+            np.matmul(W, Hc, out=Lam)
+            np.maximum(Lam, eps, out=Lam)
+            if it == 0 or it % check_every == 0 or it == n_iter:
+                wh_sum = float(np.dot(W_colsum.astype(np.float64), Hc.sum(axis=1, dtype=np.float64))) if beta == 1 else 0.0
+                cost = _divergence_from_model(Vc, Lam, beta, work=work, v_log_v=v_log_v, v_sum=v_sum, wh_sum=wh_sum)
+                partial[check % 2, i] = cost + _penalty_cost(Hc, 0.0, 0.0, mc)
+                barrier.wait()
+                total = float(partial[check % 2].sum())
+                check += 1
+                costs.append(total)
+                if it == n_iter:
+                    break
+                if it > 0 and tol > 0 and previous > 0 and (previous - total) / previous < tol:
+                    converged = True
+                    break
+                previous = total
+            it += 1
+            _update_H(Vc, W, W_colsum, WtV, Hc, Lam, work, num, den, beta=beta, mask_term=mc, eps=eps)
+        H[:, cols] = Hc
+        if i == 0:
+            outcome.update(costs=costs, it=it, converged=converged)
+
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        for future in [pool.submit(run, i) for i in range(threads)]:
+            future.result()
+    return outcome["costs"], outcome["it"], outcome["converged"]
+
+
 def decompose(
     V: np.ndarray,
     W: np.ndarray,
@@ -281,8 +398,11 @@ def decompose(
     once; each iteration is two BLAS products of size n_bins × n_pitches × n_frames
     (W H and Wᵀ(V / WH) for KL) plus a few element-wise passes. The cost at a check
     reuses the product W H that the next update needs anyway, so a check adds one
-    logarithm over the matrix (KL) and no product; BLAS runs on one thread (see
-    ``_blas_single_thread``).
+    logarithm over the matrix (KL) and no product. BLAS runs on one thread (see
+    ``_blas_single_thread``); with W fixed and no continuity or sparsity penalty the
+    frames are independent, so the columns are split into slabs of at least
+    ``MIN_FRAMES_PER_THREAD`` frames, one Python thread each, up to the process's BLAS
+    thread budget (the threads meet only at cost checks; the result is that of one thread).
 
     Examples
     --------
@@ -352,8 +472,20 @@ def decompose(
         cost = _divergence_from_model(V, Lam_now, beta, work=work, v_log_v=v_log_v, v_sum=v_sum, wh_sum=wh_sum)
         return cost + _penalty_cost(H, continuity, sparsity, mask_term)
 
+    def penalty(den, num):
+        _penalty_gradients(H, continuity, sparsity, den, num, eps, scratch)
+
+    penalty = penalty if penalized else None
     converged = False
     it = 0
+    threads = 1 if (penalized or update_W) else _engine_threads(T)
+    if threads > 1:
+        # frames are independent once W is fixed (no continuity penalty): one column slab per thread
+        with _blas_single_thread():
+            costs, it, converged = _decompose_slabs(V, W, H, beta=beta, n_iter=n_iter, tol=tol,
+                                                    check_every=check_every, mask_term=mask_term, eps=eps,
+                                                    threads=threads)
+        return Factorization(W=W, H=H, costs=np.asarray(costs), n_iter=it, converged=converged)
     with _blas_single_thread():
         costs = [cost_of_model(model(Lam))]
         have_model = True  # Lam holds W H for the current H
@@ -369,26 +501,8 @@ def decompose(
                     converged = True
                     break
             it += 1
-            if beta == 1.0:
-                np.divide(V, Lam, out=Lam)
-                np.matmul(W.T, Lam, out=num)
-                den[...] = W_colsum[:, None]
-            elif beta == 2.0:
-                np.matmul(W.T, V, out=num) if WtV is None else np.copyto(num, WtV)
-                np.matmul(W.T, Lam, out=den)
-            else:
-                np.power(Lam, beta - 2.0, out=work)
-                work *= V
-                np.matmul(W.T, work, out=num)
-                Lam **= beta - 1.0
-                np.matmul(W.T, Lam, out=den)
-            if penalized:
-                _penalty_gradients(H, continuity, sparsity, den, num, eps, scratch)
-            if mask_term is not None:
-                den += mask_term
-            np.maximum(den, eps, out=den)
-            num /= den
-            H *= num
+            _update_H(V, W, W_colsum, WtV, H, Lam, work, num, den, beta=beta, mask_term=mask_term, eps=eps,
+                      penalty=penalty)
             if update_W:
                 model(Lam)
                 if beta == 1.0:
