@@ -1,107 +1,109 @@
-"""Tests for takescribe.informed with real alignments from takescribe.align.
+"""Score-informed transcription on rendered takes with and without injected deviations.
 
-Outside references: mir_eval's note matching (precision / recall / F-measure with its
-default 50 ms onset tolerance, offsets ignored); the ground truth is the MIDI we render
-with fluidsynth (FluidR3_GM), so every played note's pitch and onset is known.
+Fixtures: fixtures/deviations (rendered with Debian's sampled GM soundfonts; the played notes
+and the injected deviations are ground truth). The informed defaults were tuned on the cello
+ballad, flute and piano march takes; the piano waltz and violin minuet are held out, and the
+floors below are what was measured on 2026-12-02 minus 0.05. Scores follow the mir_eval
+conventions (takescribe.evaluate, checked against mir_eval in test_evaluate.py).
 """
 
 from __future__ import annotations
 
-import shutil
-import subprocess
-from pathlib import Path
+import json
+import warnings
 
-import mir_eval
 import numpy as np
-import pretty_midi
 import pytest
-import soundfile as sf
-from music21 import corpus
 
-from takescribe.align import Alignment, align_reference
+from takescribe.align import AlignmentWarning, align_reference
+from takescribe.audio import load_audio
+from takescribe.errors import ScoreError
+from takescribe.evaluate import note_scores
 from takescribe.informed import informed_transcription, score_mask
-from takescribe.score import Reference, ScoreNote, load_reference
+from takescribe.noteio import read_maps
+from takescribe.pipeline import compare_take, transcribe_take
+from takescribe.score import load_reference
 from takescribe.transcription import transcribe
 
-SR = 22050
-SOUNDFONT = Path("/usr/share/sounds/sf2/FluidR3_GM.sf2")
+from conftest import FIXTURES
+
+DEV = FIXTURES / "deviations"
+INDEX = {e["name"]: e for e in json.loads((DEV / "index.json").read_text())}
+
+# held-out takes played as written (with tempo change and rubato where the take has them):
+# (blind, informed) onset F-measure measured on 2026-12-02
+CORRECT = {
+    "dev_piano_waltz_correct": (0.915, 0.968),
+    "dev_piano_waltz_slow": (0.948, 0.990),
+    "dev_violin_minuet_correct": (1.000, 1.000),
+}
 
 
-def _melody() -> Reference:
-    """An invented four-note part: C4, E4, G4, C5, half a second each."""
-    notes = tuple(
-        ScoreNote(pitch=p, onset_quarters=k, duration_quarters=1.0, onset=0.5 * k, offset=0.5 * (k + 1),
-                  measure=1, measure_label="1", beat=1.0 + k, index=k)
-        for k, p in enumerate((60, 64, 67, 72))
-    )
-    return Reference(notes=notes, tempo_map=((0.0, 120.0),), time_signatures=((0.0, 4, 4),),
-                     measure_starts=(0.0, 4.0), part_name="Melody", source="invented")
+def _run(name):
+    e = INDEX[name]
+    reference = load_reference(DEV / e["files"]["score"])
+    y, sr = load_audio(DEV / e["files"]["audio"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        informed = informed_transcription(y, sr, reference, instrument=e["instrument_program"]).notes
+    return e, y, sr, reference, informed, read_maps(DEV / e["files"]["notes"])
 
 
-def test_score_mask_follows_the_alignment():
-    ref = _melody()
-    # the take plays at half speed, one second late: take = 1 + 2 * score
-    alignment = Alignment(score_times=np.array([0.0, 2.0]), take_times=np.array([1.0, 5.0]), confidence=1.0)
-    pitches = np.arange(55, 80)
-    hop = 0.01
-    frame_times = np.arange(0, 6.0, hop)
-    tolerance, floor = 0.1, 0.1
-    mask = score_mask(ref, alignment, pitches, frame_times, tolerance=tolerance, floor=floor)
-    assert mask.shape == (pitches.size, frame_times.size) and mask.dtype == np.float32
-    for note in ref.notes:
-        row = int(np.flatnonzero(pitches == note.pitch)[0])
-        start, stop = 1 + 2 * note.onset, 1 + 2 * note.offset
-        inside = (frame_times >= start) & (frame_times <= stop)
-        assert np.all(mask[row, inside] == 1.0)
-        # well away from the note (slack: tolerance in score seconds, doubled by the tempo,
-        # plus tolerance in take seconds and a frame) the pitch is not expected
-        slack = 2 * tolerance * 2 + tolerance + 2 * hop
-        far = (frame_times < start - slack) | (frame_times > stop + slack)
-        assert np.all(mask[row, far] == floor)
-    not_in_part = ~np.isin(pitches, [n.pitch for n in ref.notes])
-    assert np.all(mask[not_in_part] == floor)
+@pytest.mark.parametrize("name", sorted(CORRECT))
+def test_informed_beats_blind_on_correct_takes(name):
+    e, y, sr, reference, informed, truth = _run(name)
+    blind = transcribe(y, sr, instrument=e["instrument_program"]).notes
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        f_blind = note_scores(truth, blind, with_offsets=False).f_measure
+        f_informed = note_scores(truth, informed, with_offsets=False).f_measure
+    measured_blind, measured_informed = CORRECT[name]
+    assert f_informed >= measured_informed - 0.05
+    assert f_informed >= f_blind - 1e-9  # the part never makes the draft worse here
+    if e["instrument_program"] == 0:
+        assert f_informed - f_blind >= 0.03  # piano: measured +4 to +5 points
 
 
-@pytest.mark.slow
-@pytest.mark.skipif(shutil.which("fluidsynth") is None or not SOUNDFONT.exists(),
-                    reason="fluidsynth or the FluidR3_GM sound font is not installed")
-def test_informed_keeps_wrong_notes_and_is_at_least_as_precise_as_blind(tmp_path):
-    ref = load_reference(corpus.getWork("bach/bwv66.6"), part="Soprano")
-    onsets = np.array([n.onset for n in ref.notes]) + 1.0
-    offsets = np.array([n.offset for n in ref.notes]) + 1.0
-    played = np.array([n.pitch for n in ref.notes])
-    wrong = [10, 20]
-    played[wrong[0]] += 1
-    played[wrong[1]] -= 2
-    pm = pretty_midi.PrettyMIDI()
-    inst = pretty_midi.Instrument(program=0)
-    for a, b, p in zip(onsets, offsets, played):
-        inst.notes.append(pretty_midi.Note(velocity=80, pitch=int(p), start=float(a), end=float(b)))
-    pm.instruments.append(inst)
-    pm.write(str(tmp_path / "take.mid"))
-    subprocess.run(["fluidsynth", "-ni", "-q", "-F", str(tmp_path / "take.wav"), "-r", str(SR), str(SOUNDFONT),
-                    str(tmp_path / "take.mid")], check=True, capture_output=True, timeout=120)
-    y, _ = sf.read(tmp_path / "take.wav", dtype="float32")
-    y = y.mean(axis=1) if y.ndim > 1 else y
+DEVIATION_TAKES = sorted(n for n, e in INDEX.items() if e["take"] in ("notes", "pitch"))
 
-    alignment = align_reference(y, SR, ref)
-    informed = informed_transcription(y, SR, ref, alignment=alignment, instrument="piano")
-    blind = transcribe(y, SR, instrument="piano")
 
-    ref_intervals = np.c_[onsets, offsets]
-    ref_hz = 440.0 * 2 ** ((played - 69) / 12)  # ISO 16: A4 = 440 Hz
+def test_played_mistakes_survive_the_score_prior():
+    # >= 90 % of the extra and wrong notes actually played are in the draft, and >= 90 % of
+    # the missed notes are absent: the part did not paper over the mistakes
+    present = played = omitted = missed = 0
+    for name in DEVIATION_TAKES:
+        e, _, _, _, informed, _ = _run(name)
+        for d in json.loads((DEV / e["files"]["deviations"]).read_text()):
+            if d["kind"] in ("extra", "wrong_pitch"):
+                played += 1
+                present += any(abs(n.onset - d["time"]) <= 0.1 and n.pitch == d["played_pitch"] for n in informed)
+            elif d["kind"] == "missed":
+                missed += 1
+                omitted += not any(abs(n.onset - d["time"]) <= 0.15 and n.pitch == d["expected_pitch"] for n in informed)
+    assert played >= 15 and missed >= 5
+    assert present / played >= 0.9, f"{present}/{played} extra or wrong notes kept"
+    assert omitted / missed >= 0.9, f"{omitted}/{missed} missed notes left out"
 
-    def scores(result):
-        est_intervals = np.array([[n.onset, n.offset] for n in result.notes]).reshape(-1, 2)
-        est_hz = 440.0 * 2 ** ((np.array([n.pitch for n in result.notes]) - 69) / 12)
-        p, r, f, _ = mir_eval.transcription.precision_recall_f1_overlap(
-            ref_intervals, ref_hz, est_intervals, est_hz, offset_ratio=None)
-        matched = mir_eval.transcription.match_notes(ref_intervals, ref_hz, est_intervals, est_hz, offset_ratio=None)
-        return p, f, {i for i, _ in matched}
 
-    p_informed, f_informed, matched_informed = scores(informed)
-    p_blind, f_blind, _ = scores(blind)
-    assert p_informed >= p_blind
-    assert f_informed >= f_blind - 0.02
-    # the score is a prior, not a cage: the two wrong notes are transcribed as played
-    assert set(wrong) <= matched_informed
+def test_score_mask_marks_expected_pitches_along_the_alignment():
+    e = INDEX["dev_violin_minuet_correct"]
+    reference = load_reference(DEV / e["files"]["score"])
+    y, sr = load_audio(DEV / e["files"]["audio"])
+    alignment = align_reference(y, sr, reference)
+    times = np.arange(0, len(y) / sr, 0.01)
+    pitches = np.arange(55, 100)
+    mask = score_mask(reference, alignment, pitches, times, tolerance=0.05, floor=0.2)
+    assert set(np.unique(mask)) <= {np.float32(0.2), np.float32(1.0)}
+    truth = read_maps(DEV / e["files"]["notes"])
+    inside = [mask[n.pitch - 55, int((n.onset + n.offset) / 2 / 0.01)] for n in truth]
+    assert np.mean(np.equal(inside, 1.0)) >= 0.95
+
+
+def test_take_of_another_piece_is_flagged():
+    # a flute tune against the piano waltz's part: the alignment confidence says they differ
+    reference = load_reference(DEV / INDEX["dev_piano_waltz_correct"]["files"]["score"])
+    y, sr = load_audio(DEV / INDEX["dev_flute_weasel_correct"]["files"]["audio"])
+    with pytest.warns(AlignmentWarning, match="does not seem to match|may not match"):
+        transcribe_take(y, sr, reference=reference, instrument="flute")
+    with pytest.raises(ScoreError, match="does not seem to be a performance"):
+        compare_take(y, sr, reference, instrument="flute", source="flute.flac")

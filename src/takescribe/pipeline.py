@@ -122,7 +122,7 @@ def transcribe_take(
     if alignment is None:
         if progress:
             progress("aligning the part with the take")
-        alignment = align_reference(y, sr, reference)
+        alignment = align_reference(y, sr, reference, warn=False)
     if alignment.confidence < MISMATCH_CONFIDENCE:
         warnings.warn(
             f"the take does not seem to match the part (alignment confidence {alignment.confidence:.2f});"
