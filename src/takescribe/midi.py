@@ -58,7 +58,7 @@ from typing import Iterable, Sequence
 import mido
 
 from . import safeio
-from .errors import NoteListError
+from .errors import InputError, NoteListError
 from .notes import Note, sort_notes, validate_notes
 
 __all__ = [
@@ -407,8 +407,8 @@ def _open_midi(path: str | os.PathLike) -> tuple[Path, mido.MidiFile]:
         midi = mido.MidiFile(file=io.BytesIO(data), clip=False)
     except EOFError as exc:
         raise NoteListError(f"{path}: MIDI file is truncated (a chunk ends early); re-export or re-download it") from exc
-    except (OSError, ValueError, KeyError, IndexError, TypeError) as exc:
-        raise NoteListError(f"{path}: corrupt MIDI data ({exc}); re-export the file") from exc
+    except Exception as exc:  # mido raises many kinds (KeySignatureError, ValueError, ...) on bad bytes
+        raise NoteListError(f"{path}: corrupt MIDI data ({type(exc).__name__}: {exc}); re-export the file") from exc
     if midi.type not in (0, 1, 2):
         raise NoteListError(f"{path}: unknown MIDI file format {midi.type} (the SMF spec defines 0, 1 and 2)")
     if midi.ticks_per_beat <= 0:
@@ -541,7 +541,10 @@ def read_midi_notes(path: str | os.PathLike, *, sustain: bool = False) -> list[N
         if off <= on:
             continue
         tempo = tempo_maps[t]
-        notes.append(Note(tempo.tick_to_seconds(on), tempo.tick_to_seconds(off), pitch, velocity))
+        try:
+            notes.append(Note(tempo.tick_to_seconds(on), tempo.tick_to_seconds(off), pitch, velocity))
+        except InputError as exc:
+            raise NoteListError(f"{path}: impossible note in the MIDI data ({exc}); re-export the file") from exc
     return sort_notes(notes)
 
 
