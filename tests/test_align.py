@@ -212,6 +212,19 @@ def test_take_of_only_part_of_the_piece(chorale, render_folder, half):
 
 
 @needs_fluidsynth
+def test_room_noise_before_the_playing_is_not_music(chorale, render_folder):
+    onsets, offsets, pitches, truth = _warped(chorale, lambda t: t + 2.0)
+    y = _render(render_folder, "silence", onsets, offsets, pitches)
+    rng = np.random.default_rng(7)
+    noise = rng.normal(0.0, 1.0, y.size).astype(np.float32)
+    y = y + noise * np.float32(np.sqrt(np.mean(y**2) / 10 ** (20 / 10)))  # white noise 20 dB under the take
+    alignment = align_reference(y, SR, chorale)
+    err = _errors(alignment, chorale, truth)
+    assert np.median(err) <= MEDIAN_LIMIT and np.percentile(err, 95) <= P95_LIMIT
+    assert alignment.confidence >= MISMATCH_CONFIDENCE
+
+
+@needs_fluidsynth
 def test_another_piece_gets_low_confidence_and_a_warning(chorale, render_folder):
     other = load_reference(corpus.getWork("bach/bwv84.5"), part="Soprano")
     on, off, pitch = _arrays(other)

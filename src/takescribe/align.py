@@ -46,12 +46,17 @@ Method
    frames a side), then at the full frame rate inside a band around the coarse
    path; memory grows with the length of the take, not its square.
 
-5. **Confidence.** The mean chroma similarity along the path is compared with
-   that of the best path against the part transposed by a tritone (a
-   same-rhythm, wrong-pitch reference aligned by the same programme):
-   ``confidence = clip((s_path - s_null) / (1 - s_null) * 2, 0, 1)``. Below
+5. **Confidence.** The mean chroma similarity along the path ``s_path`` is
+   compared with ``s_null``, the best one obtained by aligning the part
+   transposed by 1..11 semitones (same rhythm, wrong pitches; a rolled chroma
+   is an exact transposition) with the same programme on frames pooled to at
+   most 1000 per take: ``confidence = clip(2 (s_path - s_null) / (1 - s_null), 0, 1)``.
+   The take of another piece matches some transposition as well as the
+   untransposed part, so its confidence falls to about 0. Below
    :data:`MISMATCH_CONFIDENCE` :func:`align_reference` warns with
-   :class:`AlignmentWarning`.
+   :class:`AlignmentWarning`. The confidence is scaled down when the path spans
+   less than 75 % of the take's sounding frames (a short stretch that happens to
+   match is no evidence).
 
 Conventions
 -----------
@@ -110,6 +115,8 @@ _ONSET_DECAY_SECONDS = 0.2
 _LOCAL_NORM_SECONDS = 1.0
 _ENVELOPE_SECONDS = 1.5
 _LANDING_SECONDS = 0.1
+_NOISE_MARGIN = 4.0  # 6 dB in power
+_COVERAGE_FULL = 0.75
 _CONFIDENCE_FRAMES = 1000
 _CONFIDENCE_GAIN = 2.0
 
@@ -164,8 +171,10 @@ class Alignment:
     hop_length, sr : int
         Frame grid of the path.
     similarity, null_similarity : float
-        Mean chroma similarity along the path, and along the path found for the
-        tritone-transposed part (see the module docstring).
+        Mean chroma similarity along the path, and the best one found for the part
+        transposed by 1..11 semitones (see the module docstring).
+    coverage : float
+        Share of the take's sounding frames that lie within the path's span.
     """
 
     score_times: np.ndarray
@@ -176,6 +185,7 @@ class Alignment:
     sr: int = 22050
     similarity: float = float("nan")
     null_similarity: float = float("nan")
+    coverage: float = float("nan")
     _forward: tuple = field(default=(), repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -342,7 +352,14 @@ def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: 
 
 
 def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, frame_rate: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Chroma (n_frames, 12), decaying onset chroma (n_frames, 12) and a sounding mask (n_frames,)."""
+    """Chroma (n_frames, 12), decaying onset chroma (n_frames, 12) and a sounding mask (n_frames,).
+
+    A frame sounds when it is within 40 dB of the loud frames (else its chroma is the
+    uniform "rest" vector). When the quietest frames (5th percentile) lie at least
+    15 dB under the loud ones, they are taken as the noise floor of the room and frames
+    less than 6 dB above it count as silence too, so steady noise before and after the
+    playing is not mistaken for music.
+    """
     n_frames = energy_chroma.shape[1]
     total = energy_chroma.sum(axis=0)
     ref = float(np.percentile(total, 99)) if total.size else 0.0
@@ -375,7 +392,10 @@ def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, fram
     decayed = onset.copy()
     for k in range(1, n_decay):
         decayed[:, k:] = np.maximum(decayed[:, k:], onset[:, :-k] * weights[k])
-    return np.ascontiguousarray(chroma.T, dtype=np.float32), np.ascontiguousarray(decayed.T, dtype=np.float32), sounding
+    floor = float(np.percentile(total, 5))
+    above_floor = total > _NOISE_MARGIN * floor if floor < ref * 10 ** (-15 / 10) else np.ones_like(sounding)
+    return (np.ascontiguousarray(chroma.T, dtype=np.float32), np.ascontiguousarray(decayed.T, dtype=np.float32),
+            sounding & above_floor)
 
 
 def take_features(y: np.ndarray, sr: int, *, hop_length: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -768,12 +788,16 @@ def align_reference(
         confidence = 0.0
     else:
         confidence = _confidence(similarity, null_similarity)
+    sounding_total = max(int(t_sounding.sum()), 1)
+    coverage = float(t_sounding[cols[0]:cols[-1] + 1].sum()) / sounding_total if rows.size >= 2 else 0.0
+    # a path that explains only a small part of what was played is no evidence of a match
+    confidence *= float(np.clip(coverage / _COVERAGE_FULL, 0.0, 1.0))
     frame_seconds = hop_length / sr
     path_segments = _segments(rows, cols, frame_seconds)
     alignment = Alignment(
         score_times=rows * frame_seconds, take_times=cols * frame_seconds, confidence=confidence,
         segments=path_segments, hop_length=int(hop_length), sr=int(sr),
-        similarity=similarity, null_similarity=null_similarity,
+        similarity=similarity, null_similarity=null_similarity, coverage=coverage,
     )
     pauses = _pauses_between_onsets(alignment, np.array([n.onset for n in reference.notes]))
     segments = tuple(sorted([x for x in path_segments if x.kind != "pause"] + pauses, key=lambda x: x.take_start))
