@@ -50,18 +50,16 @@ Research* 36(1), 51–60 (librosa's ``beat_track``).
 from __future__ import annotations
 
 import copy
-import io
 import math
 import re
-import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
 
-from .errors import InputError, OutputError, ScoreError
+from .errors import InputError, OutputError
 from .notes import Note, sort_notes, validate_notes
 from .safeio import check_writable, write_text
 
@@ -538,24 +536,6 @@ def _check_tempo(beats: np.ndarray, period: float, onsets: np.ndarray) -> tuple[
     start = phase - new_period * np.ceil((phase - min(beats[0], onsets[0])) / new_period)
     n = int(np.ceil((max(beats[-1], onsets[-1]) - start) / new_period)) + 1
     return start + new_period * np.arange(n), new_period
-
-
-def _tempo_octave(beats: np.ndarray, period: float, onsets: np.ndarray) -> tuple[np.ndarray, float]:
-    """Move a tracked beat into the range listeners tap to most readily (about 70–150 beats per
-    minute; van Noorden & Moelants 1999, JNMR 28(1), from memory) when the notes support it:
-    double a slow beat when its midpoints carry onsets, halve a fast one."""
-    if period > 60.0 / 70:
-        mids = (beats[:-1] + beats[1:]) / 2
-        if _hit_rate(mids, onsets, period / 2) >= 0.25:
-            out = np.empty(2 * len(beats) - 1)
-            out[0::2] = beats
-            out[1::2] = mids
-            return out, period / 2
-    if period < 60.0 / 150:
-        even, odd = beats[0::2], beats[1::2]
-        pick = even if _hit_rate(even, onsets, period) >= _hit_rate(odd, onsets, period) else odd
-        return pick, period * 2
-    return beats, period
 
 
 def _extend_beats(beats: np.ndarray, first: float, last: float, onsets: np.ndarray) -> np.ndarray:
@@ -1051,7 +1031,14 @@ def quantize(
         key = (on, n.pitch)
         if key not in out or out[key].duration_quarters < qn.duration_quarters:
             out[key] = qn
-    return sorted(out.values(), key=lambda q: (q.onset_quarters, q.pitch))
+    # one key cannot sound twice: a note is cut where the same pitch starts again
+    result = sorted(out.values(), key=lambda q: (q.pitch, q.onset_quarters))
+    for i in range(len(result) - 1):
+        a, b = result[i], result[i + 1]
+        if a.pitch == b.pitch and a.offset_quarters > b.onset_quarters:
+            result[i] = QuantizedNote(a.onset_quarters, b.onset_quarters - a.onset_quarters,
+                                      a.pitch, a.velocity, a.source)
+    return sorted(result, key=lambda q: (q.onset_quarters, q.pitch))
 
 
 # ---------------------------------------------------------------------------- key and spelling
