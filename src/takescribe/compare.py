@@ -832,6 +832,41 @@ def _find_restarts(
             earlier_start, later_start = min(partner_times), min(run_times)
             resumed = voter_pairs
             dropped = [(i, partner_of_ref[i]) for i in refs if i in partner_of_ref]
+        # the first notes of the repeated stretch may have paired across the two attempts:
+        # walk back through the part while a note is heard twice, ``gap`` apart, just before
+        # the attempts as found so far
+        gap = abs(best_shift)
+        voters_refs = set(refs)
+        score_order = [int(i) for i in np.lexsort((part.pitches, part.onsets))]
+        first = min(score_order.index(i) for i in refs)
+        head = min(refs, key=lambda i: part.onsets[i])
+        for position in range(first - 1, max(first - 4 * min_restart_notes, -1), -1):
+            i = score_order[position]
+            if i in used or i in voters_refs:
+                continue
+            same = np.flatnonzero((played_pitch == part.pitches[i]) & ~np.isin(np.arange(len(played_on)), list(ignore)))
+            # where the later attempt would have played it, at the overall pace
+            due = later_start - slope * (part.onsets[head] - part.onsets[i])
+            later = [j for j in same if abs(played_on[j] - due) <= 2.0 * vote_tolerance and played_on[j] < later_start
+                     and (j not in matched_ref_of or matched_ref_of[j] == i)]
+            pair = None
+            for j_later in sorted(later, key=lambda j: -played_on[j]):
+                earlier = [j for j in same if abs(played_on[j_later] - played_on[j] - gap) <= vote_tolerance]
+                if earlier:
+                    pair = (min(earlier, key=lambda j: abs(played_on[j_later] - played_on[j] - gap)), int(j_later))
+                    break
+            if pair is None:
+                break
+            j_earlier, j_later = pair
+            earlier_start = min(earlier_start, played_on[j_earlier])
+            later_start = min(later_start, played_on[j_later])
+            voters_refs.add(i)
+            refs.append(i)
+            if part.onsets[i] < part.onsets[head]:
+                head = i
+            resumed = [p for p in resumed if p[0] != i] + [(i, j_later)]
+            if i in partner_of_ref and partner_of_ref[i] != j_later:
+                dropped = [p for p in dropped if p[0] != i] + [(i, partner_of_ref[i])]
         abandoned = [int(j) for j in np.flatnonzero((played_on >= earlier_start - 1e-6) & (played_on < later_start - 1e-6))]
         if not abandoned:
             continue
