@@ -648,3 +648,12 @@ def test_dense_random_notes_export_cleanly(seed, time_signature, program, tmp_pa
     want = Counter((q.pitch, q.onset_quarters, q.duration_quarters) for q in notation.notes())
     assert got == want
     assert all(q.duration_quarters >= Fraction(1, 8) for q in notation.notes())
+
+
+def test_no_notes_warns_and_still_writes(tmp_path, schema):
+    from takescribe.notation import NotationWarning
+
+    with pytest.warns(NotationWarning, match="no notes"):
+        notation = notate([], instrument_name="Cello", midi_program=42)
+    path = write_musicxml(notation, tmp_path / "empty.musicxml")
+    validate_xml(path, schema)

@@ -52,6 +52,7 @@ from __future__ import annotations
 import copy
 import math
 import re
+import warnings
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
@@ -66,6 +67,7 @@ from .safeio import check_writable, write_text
 __all__ = [
     "BeatGrid",
     "QuantizedNote",
+    "NotationWarning",
     "Notation",
     "LAMBDA",
     "GRID_NAMES",
@@ -107,6 +109,12 @@ GRID_NAMES = {
 }
 
 _PIANO_PROGRAMS = range(0, 8)
+
+
+
+
+class NotationWarning(UserWarning):
+    """A draft was written but may not be what was wanted (e.g. no notes)."""
 
 
 # ---------------------------------------------------------------------------- values
@@ -1191,10 +1199,14 @@ def split_hands(notes: Sequence[QuantizedNote]) -> tuple[list[QuantizedNote], li
     pitches = [n.pitch for n in notes]
     c_right = float(max(np.percentile(pitches, 75), 64))
     c_left = float(min(np.percentile(pitches, 25), 55))
+    active_r: list[QuantizedNote] = []
+    active_l: list[QuantizedNote] = []
     for onset in sorted(groups):
         group = sorted(groups[onset], key=lambda n: n.pitch)
-        held_r = [n.pitch for n in right if n.offset_quarters > onset]
-        held_l = [n.pitch for n in left if n.offset_quarters > onset]
+        active_r = [n for n in active_r if n.offset_quarters > onset]
+        active_l = [n for n in active_l if n.offset_quarters > onset]
+        held_r = [n.pitch for n in active_r]
+        held_l = [n.pitch for n in active_l]
         best = None
         for k in range(len(group) + 1):
             lh = [n.pitch for n in group[:k]]
@@ -1218,6 +1230,8 @@ def split_hands(notes: Sequence[QuantizedNote]) -> tuple[list[QuantizedNote], li
         k = best[1]
         left.extend(group[:k])
         right.extend(group[k:])
+        active_l.extend(group[:k])
+        active_r.extend(group[k:])
         if k:
             c_left = 0.6 * c_left + 0.4 * float(np.mean([n.pitch for n in group[:k]]))
         if k < len(group):
@@ -1323,6 +1337,8 @@ def notate(
     Notation
     """
     notes = sort_notes(validate_notes(notes))
+    if not notes:
+        warnings.warn("no notes to notate: the score will hold empty bars", NotationWarning, stacklevel=2)
     if not isinstance(midi_program, (int, np.integer)) or not 0 <= int(midi_program) <= 127:
         raise InputError(f"midi_program must be a General MIDI program in range 0..127, got {midi_program!r}")
     if grid is not None and grid not in GRID_NAMES:
@@ -1387,30 +1403,27 @@ def _pieces(start: Fraction, end: Fraction, beat: Fraction) -> list[Fraction]:
     """Split ``[start, end)`` (quarters from the bar start) into lengths a reader expects.
 
     Beat-aligned spans take the longest plain values; spans that start or end inside a
-    beat are cut at beat lines, then greedily into plain or triplet values that keep to
-    the grid (common practice, no source).
+    beat are cut at beat lines, then greedily into triplet values when an end lies on a
+    triplet grid, else plain values (common practice, no source).
     """
+    plain = sorted(_PLAIN_VALUES, reverse=True)
+    triplet = sorted(_TRIPLET_VALUES, reverse=True)
     out: list[Fraction] = []
     pos = start
     while pos < end:
-        beat_end = (pos // beat + 1) * beat
         if pos % beat == 0 and end - pos >= beat:
             span_end = pos + ((end - pos) // beat) * beat
         else:
-            span_end = min(end, beat_end)
+            span_end = min(end, (pos // beat + 1) * beat)
         remaining = span_end - pos
-        for v in sorted(_PLAIN_VALUES + _TRIPLET_VALUES, reverse=True):
-            if v <= remaining and ((remaining - v) in (0,) or _fits(remaining - v)):
-                # a triplet value only when it starts on its own grid
-                if v.denominator % 3 == 0 and (pos % v) != 0 and (pos % (v / 2 if v.numerator == 2 else v)) != 0:
-                    continue
-                out.append(v)
-                pos += v
+        in_triplets = pos.denominator % 3 == 0 or span_end.denominator % 3 == 0
+        for v in (triplet + plain) if in_triplets else (plain + triplet):
+            if v <= remaining and _fits(remaining - v):
                 break
-        else:  # not representable: fall back to 1/48 slices (never reached for grid values)
-            v = Fraction(1, 12)
-            out.append(min(v, remaining))
-            pos += min(v, remaining)
+        else:  # not a sum of our values (off-grid input): take what is left as is
+            v = remaining
+        out.append(v)
+        pos += v
     return out
 
 
@@ -1505,6 +1518,8 @@ def to_music21(notation: Notation):
     score.metadata = metadata.Metadata()
     score.metadata.title = f"{notation.part_name} (draft)"
     score.metadata.movementName = score.metadata.title
+    num0, den0 = g.time_signature_at(Fraction(0))
+    first_number = 0 if bars[0][1] < Fraction(4 * num0, den0) else 1  # a pickup bar is bar 0
     parts = []
     for s, staff in enumerate(notation.staves):
         part = stream.PartStaff() if notation.grand_staff else stream.Part()
@@ -1520,7 +1535,7 @@ def to_music21(notation: Notation):
         for i, (m_start, m_len) in enumerate(bars):
             num, den = g.time_signature_at(m_start)
             _, beat = _beat_of(num, den)
-            m = stream.Measure(number=i + 1)
+            m = stream.Measure(number=i + first_number)
             if i == 0:
                 m.insert(0, clef.TrebleClef() if notation.clefs[s] == "treble" else clef.BassClef())
                 m.insert(0, key.Key(_tonic_name(notation.key_fifths, notation.key_mode), notation.key_mode))
