@@ -37,7 +37,6 @@ import dataclasses
 import json
 import os
 import platform
-import resource
 import subprocess
 import sys
 import time
@@ -152,7 +151,6 @@ def concatenated_take(minutes: float, *, gap: float = 1.0):
             break
         seg = y[: total - start]
         audio[start: start + len(seg)] += seg
-        bpm = ref.tempo_map[0][1]
         for q, b in ref.tempo_map:
             tempo_map.append((offset_q + q, b))
         for q, num, den in ref.time_signatures:
@@ -172,7 +170,6 @@ def concatenated_take(minutes: float, *, gap: float = 1.0):
         span_q = end_q_piece + (span_s - end_s_piece) * last_bpm / 60.0
         offset_q += span_q
         offset_s += span_s
-        del bpm
     notes = [n for n in notes if n.offset <= minutes * 60]
     notes = [dataclasses.replace(n, index=i) for i, n in enumerate(notes)]
     first = pieces[0][2]
@@ -232,7 +229,14 @@ def _best_of(fn, repeats: int) -> float:
     return best
 
 
-def speed_engine(n_iter: int = 100, repeats: int = 3) -> dict:
+def _one_thread(fn):
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1, user_api="blas"):
+        return fn()
+
+
+def speed_engine(n_iter: int = 100, repeats: int = 5) -> dict:
     from sklearn.decomposition import non_negative_factorization
     from threadpoolctl import threadpool_limits
 
@@ -249,13 +253,21 @@ def speed_engine(n_iter: int = 100, repeats: int = 3) -> dict:
         V.T, H=W.T.copy(), n_components=K, init="custom", update_H=False, solver="mu",
         beta_loss="kullback-leibler", max_iter=n_iter, tol=0, alpha_W=0.0, alpha_H=0.0)
     H_ours = ours().H
+    theirs_one = lambda: _one_thread(theirs)  # noqa: E731
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         A = theirs()[0]
-        t_theirs_default = _best_of(theirs, repeats)
-        with threadpool_limits(1, user_api="blas"):
-            t_theirs_one = _best_of(theirs, repeats)
-    t_ours = _best_of(ours, repeats)
+        # interleaved repeats, best wall time and median CPU time (all threads) of each:
+        # other load on the machine then hits all three alike
+        times = {"ours": [], "sklearn": [], "sklearn_one": []}
+        for _ in range(repeats):
+            for name, fn in (("ours", ours), ("sklearn", theirs), ("sklearn_one", theirs_one)):
+                t0, c0 = time.perf_counter(), time.process_time()
+                fn()
+                times[name].append((time.perf_counter() - t0, time.process_time() - c0))
+    best = {k: min(w for w, _ in v) for k, v in times.items()}
+    cpu = {k: float(np.median([c for _, c in v])) for k, v in times.items()}
+    t_ours, t_theirs_default, t_theirs_one, cpu_ours = best["ours"], best["sklearn"], best["sklearn_one"], cpu["ours"]
     cost_ours = beta_divergence(V, W @ H_ours, 1.0)
     cost_theirs = beta_divergence(V, W @ A.T, 1.0)
     # plain numpy float32 product of the same size, default threads and one thread
@@ -271,21 +283,28 @@ def speed_engine(n_iter: int = 100, repeats: int = 3) -> dict:
     mm_rate, mm_one_rate = 2.0 * F * K * T / t_mm, 2.0 * F * K * T / t_mm_one
     result = {
         "shape": {"n_bins": F, "n_pitches": K, "n_frames": T}, "n_iter": n_iter,
-        "ours_seconds": t_ours, "sklearn_seconds": t_theirs_default, "sklearn_one_thread_seconds": t_theirs_one,
+        "ours_seconds": t_ours, "ours_cpu_seconds": cpu_ours, "sklearn_cpu_seconds": cpu["sklearn"],
+        "sklearn_one_thread_cpu_seconds": cpu["sklearn_one"], "speedup_vs_sklearn_cpu": cpu["sklearn"] / cpu_ours,
+        "speedup_vs_sklearn_one_thread_cpu": cpu["sklearn_one"] / cpu_ours, "sklearn_seconds": t_theirs_default, "sklearn_one_thread_seconds": t_theirs_one,
         "speedup_vs_sklearn": t_theirs_default / t_ours, "speedup_vs_sklearn_one_thread": t_theirs_one / t_ours,
         "cost_ours": cost_ours, "cost_sklearn": cost_theirs,
         "cost_relative_difference": (cost_ours - cost_theirs) / cost_theirs,
         "ours_gflops": ours_rate / 1e9, "numpy_matmul_gflops": mm_rate / 1e9,
         "numpy_matmul_one_thread_gflops": mm_one_rate / 1e9,
         "flop_fraction_of_matmul": ours_rate / mm_rate, "flop_fraction_of_one_thread_matmul": ours_rate / mm_one_rate,
+        "ours_gflops_per_cpu_second": flops_iter * n_iter / cpu_ours / 1e9,
     }
     print(f"  engine vs scikit-learn ({F}x{K}x{T}, {n_iter} KL iterations): ours {t_ours:.3f} s,"
           f" scikit-learn {t_theirs_default:.3f} s (one BLAS thread {t_theirs_one:.3f} s):"
           f" {result['speedup_vs_sklearn']:.1f}x ({result['speedup_vs_sklearn_one_thread']:.1f}x);"
           f" final cost {cost_ours:.6g} vs {cost_theirs:.6g} ({100 * result['cost_relative_difference']:+.4f} %)")
+    print(f"  CPU seconds (median): ours {cpu_ours:.3f}, scikit-learn {cpu['sklearn']:.3f}"
+          f" (one BLAS thread {cpu['sklearn_one']:.3f}): {result['speedup_vs_sklearn_cpu']:.1f}x"
+          f" ({result['speedup_vs_sklearn_one_thread_cpu']:.1f}x)")
     print(f"  FLOP rate: ours {ours_rate / 1e9:.1f} GFLOP/s; numpy matmul {mm_rate / 1e9:.1f} GFLOP/s"
           f" ({100 * result['flop_fraction_of_matmul']:.0f} %), one thread {mm_one_rate / 1e9:.1f} GFLOP/s"
-          f" ({100 * result['flop_fraction_of_one_thread_matmul']:.0f} %)", flush=True)
+          f" ({100 * result['flop_fraction_of_one_thread_matmul']:.0f} %); ours per CPU second"
+          f" {result['ours_gflops_per_cpu_second']:.1f} GFLOP/s", flush=True)
     return result
 
 
@@ -298,7 +317,7 @@ from takescribe.pipeline import load_take, transcribe_take
 minutes = float(sys.argv[1])
 y, sr = load_take(sys.argv[2])
 n = int(minutes * 60 * sr)
-y = np.resize(y, n).astype(np.float32)
+y = np.resize(y, n)  # one float32 copy of the long take, as load_take would return
 before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 t0 = time.perf_counter()
 with warnings.catch_warnings():
@@ -306,8 +325,9 @@ with warnings.catch_warnings():
     result, _ = transcribe_take(y, sr, instrument=0)
 elapsed = time.perf_counter() - t0
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-print(json.dumps({"minutes": minutes, "rss_before_kb": before, "peak_rss_kb": peak, "seconds": elapsed,
-                  "audio_mb": y.nbytes / 2**20, "notes": len(result.notes)}))
+hwm = int(next(line for line in open("/proc/self/status") if line.startswith("VmHWM")).split()[1])
+print(json.dumps({"minutes": minutes, "rss_before_kb": before, "peak_rss_kb": peak, "vm_hwm_kb": hwm,
+                  "seconds": elapsed, "audio_mb": y.nbytes / 2**20, "notes": len(result.notes)}))
 """
 
 
@@ -315,8 +335,11 @@ def speed_memory(minutes_list=(1, 10, 60)) -> dict:
     out = {}
     take = CORPUS / "tuning" / "piano_scales.flac"
     for minutes in minutes_list:
-        proc = subprocess.run([sys.executable, "-c", _MEMORY_CHILD, str(minutes), str(take)], capture_output=True,
-                              text=True, cwd=ROOT)
+        # Linux keeps the larger of ru_maxrss and the exec'ing process's peak across execve, so a
+        # child exec'd straight from this (large) process would report our peak: a shell in
+        # between forks the child from a small process.
+        proc = subprocess.run(["/bin/sh", "-c", '"$0" -c "$1" "$2" "$3"; exit $?', sys.executable, _MEMORY_CHILD,
+                               str(minutes), str(take)], capture_output=True, text=True, cwd=ROOT)
         if proc.returncode != 0:
             out[f"{minutes}min"] = {"error": proc.stderr.strip().splitlines()[-1:]}
             print(f"  {minutes} min: failed: {proc.stderr.strip()[-300:]}")
@@ -325,7 +348,9 @@ def speed_memory(minutes_list=(1, 10, 60)) -> dict:
         row["peak_rss_mb"] = row["peak_rss_kb"] / 1024  # ru_maxrss is in kilobytes on Linux
         row["rss_before_mb"] = row["rss_before_kb"] / 1024
         out[f"{minutes}min"] = row
-        print(f"  {minutes:3d} min blind: peak RSS {row['peak_rss_mb']:.0f} MB (with the take loaded before"
+        row["vm_hwm_mb"] = row["vm_hwm_kb"] / 1024
+        print(f"  {minutes:3d} min blind: peak RSS {row['peak_rss_mb']:.0f} MB (VmHWM {row['vm_hwm_mb']:.0f} MB;"
+              f" with the take loaded before"
               f" transcription: {row['rss_before_mb']:.0f} MB, audio {row['audio_mb']:.0f} MB); {row['seconds']:.1f} s",
               flush=True)
     return out
