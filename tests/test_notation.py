@@ -605,8 +605,39 @@ def test_midi_export_data_round_trips_through_the_midi_writer(tmp_path):
                            tempo_map=tempo_map, time_signatures=notation.time_signature_map())
     pm = pretty_midi.PrettyMIDI(str(path))
     assert sum(len(i.notes) for i in pm.instruments) == len(notation.notes())
-    onsets = sorted(round(n.start, 3) for i in pm.instruments for n in i.notes)
-    assert onsets == sorted(round(float(n.onset_quarters) * QUARTER_SECONDS, 3) for n in notation.notes())
+    # Standard MIDI File: ticks count divisions of a quarter note, so each onset tick is
+    # onset_quarters * resolution exactly
+    ticks = sorted(pm.time_to_tick(n.start) for i in pm.instruments for n in i.notes)
+    assert ticks == sorted(int(n.onset_quarters * pm.resolution) for n in notation.notes())
+
+
+def test_midi_time_line_follows_a_changing_tempo():
+    """A take that slows down: the tempo map changes and notes still land on quarter ticks."""
+    notes = []
+    t = 0.0
+    for i in range(32):
+        period = 0.5 if i < 16 else 0.6
+        notes.append(Note(t, t + 0.9 * period, 48 if i % 4 == 0 else 64, 90 if i % 4 == 0 else 60))
+        t += period
+    notation = notate(notes, midi_program=0, time_signature="4/4")
+    tempo_map = notation.tempo_map()
+    assert tempo_map[0][0] == 0.0
+    assert tempo_map[0][1] == pytest.approx(120.0, rel=0.02)
+    assert tempo_map[-1][1] == pytest.approx(100.0, rel=0.02)
+    # integrate the tempo map by hand: seconds of every quantized onset
+    def seconds(q):
+        out, prev_t, prev_bpm, prev_q = 0.0, 0.0, tempo_map[0][1], 0.0
+        for t_change, bpm in tempo_map[1:]:
+            q_change = prev_q + (t_change - prev_t) * prev_bpm / 60
+            if q <= q_change:
+                break
+            prev_t, prev_q, prev_bpm = t_change, q_change, bpm
+        return prev_t + (q - prev_q) * 60 / prev_bpm
+
+    got = sorted(n.onset for track in notation.midi_tracks() for n in track[1])
+    want = sorted(seconds(float(q.onset_quarters)) for q in notation.notes())
+    assert np.allclose(got, want, atol=1e-9)
+    assert [float(q.onset_quarters) for q in notation.notes()] == list(range(32))
 
 
 def test_with_the_project_score_reader(tmp_path, schema):

@@ -288,35 +288,44 @@ class Notation:
         ends = [n.offset_quarters for n in self.notes()]
         return max(ends) if ends else Fraction(0)
 
-    def tempo_map(self) -> list[tuple[float, float]]:
-        """Tempo as ``(seconds, quarter-note bpm)`` pairs following the beat grid.
-
-        One pair per beat where the tempo changes by more than 1 %, so a MIDI file with
-        this map and :meth:`midi_tracks` notes plays the notated rhythm at the take's pace.
-        """
+    def _tempo_segments(self) -> list[tuple[float, float]]:
+        """``(quarters, quarter-note bpm)`` from quarter 0: a new segment at each beat where
+        the grid's tempo moves by more than 1 % from the current segment."""
         times = self.grid.beat_times
         quarters = np.array([float(q) for q in self.grid.beat_quarters_positions])
         out: list[tuple[float, float]] = []
-        origin = float(self.grid.quarters_to_seconds(np.array([0.0]))[0])
         for i in range(len(times) - 1):
-            dq = quarters[i + 1] - quarters[i]
-            dt = times[i + 1] - times[i]
-            bpm = 60.0 * dq / dt
-            t = 0.0 if i == 0 else float(times[i] - origin)
+            bpm = 60.0 * (quarters[i + 1] - quarters[i]) / (times[i + 1] - times[i])
             if not out or abs(bpm - out[-1][1]) > 0.01 * out[-1][1]:
-                out.append((t, float(bpm)))
+                out.append((0.0 if not out else float(quarters[i]), float(bpm)))
         if not out:
             out.append((0.0, float(self.grid.bpm * float(self.grid.beat_quarters))))
         return out
 
+    def _quarters_to_midi_seconds(self, quarters) -> float:
+        """Seconds of a score position on the MIDI time line (0 s = quarter 0), integrating
+        :meth:`tempo_map` so that notes fall exactly on its ticks."""
+        q = float(quarters)
+        seconds = 0.0
+        segments = self._tempo_segments()
+        for k, (start, bpm) in enumerate(segments):
+            end = segments[k + 1][0] if k + 1 < len(segments) else np.inf
+            if q <= start:
+                break
+            seconds += (min(q, end) - start) * 60.0 / bpm
+        return seconds
+
+    def tempo_map(self) -> list[tuple[float, float]]:
+        """Tempo as ``(seconds, quarter-note bpm)`` pairs following the beat grid, first at 0 s.
+
+        A pair where the take's tempo moves by more than 1 %, so a MIDI file with this map
+        and :meth:`midi_tracks` notes plays the notated rhythm at the take's pace.
+        """
+        return [(self._quarters_to_midi_seconds(q), bpm) for q, bpm in self._tempo_segments()]
+
     def time_signature_map(self) -> list[tuple[float, int, int]]:
         """Time signatures as ``(seconds, numerator, denominator)`` on the MIDI time line."""
-        q2s = self._quarters_to_midi_seconds
-        return [(float(q2s(q)), int(n), int(d)) for q, n, d in self.grid.time_signatures]
-
-    def _quarters_to_midi_seconds(self, quarters) -> float:
-        origin = float(self.grid.quarters_to_seconds(np.array([0.0]))[0])
-        return float(self.grid.quarters_to_seconds(np.array([float(quarters)]))[0]) - origin
+        return [(self._quarters_to_midi_seconds(q), int(n), int(d)) for q, n, d in self.grid.time_signatures]
 
     def midi_tracks(self) -> list[tuple[str, list[Note], int]]:
         """One ``(name, notes, program)`` per staff for a type-1 MIDI file.
