@@ -154,7 +154,7 @@ class AlignmentSegment:
         return self.take_end - self.take_start
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class Alignment:
     """A warping path between a reference part and a take.
 
