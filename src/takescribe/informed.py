@@ -55,6 +55,7 @@ def score_mask(
     *,
     tolerance: float = 0.1,
     floor: float = 0.1,
+    onsets_only: bool = False,
 ) -> np.ndarray:
     """Where the aligned part expects each pitch in each take frame.
 
@@ -71,6 +72,8 @@ def score_mask(
         Seconds of slack on each side (alignment error, attack and release).
     floor : float
         Mask value where the part does not expect the pitch (0 forbids, 1 ignores the score).
+    onsets_only : bool
+        Mark only where the part *starts* the pitch (± ``tolerance``), not where it sounds.
 
     Returns
     -------
@@ -93,7 +96,8 @@ def score_mask(
         if k is None:
             continue
         a = max(int(np.floor(note.onset / _GRID)) - pad, 0)
-        b = min(int(np.ceil(note.offset / _GRID)) + pad + 1, n_cells)
+        end = note.onset if onsets_only else note.offset
+        b = min(int(np.ceil(end / _GRID)) + pad + 1, n_cells)
         roll[k, a:b] = True
     score_times = frame_times if alignment is None else np.asarray(alignment.take_to_score(frame_times), float)
     cells = np.clip(np.round(score_times / _GRID).astype(int), 0, n_cells - 1)
@@ -147,9 +151,9 @@ def informed_transcription(
     expected_factor : float
         Onset threshold multiplier where the part expects the pitch (<= 1).
     ghost_ratio : float
-        Unwritten notes on the 2nd–4th partial of a louder note starting with them are
-        dropped when quieter than this fraction of it
-        (:func:`takescribe.tracking.suppress_harmonic_ghosts`); written notes never are.
+        Notes on the 2nd–4th partial of a louder note starting with them are dropped when
+        quieter than this fraction of it (:func:`takescribe.tracking.suppress_harmonic_ghosts`),
+        unless the part starts that pitch there.
 
     Returns
     -------
@@ -182,5 +186,6 @@ def informed_transcription(
     return transcribe(
         y, sr, instrument=preset, dictionary=dictionary, mask=mask, mask_penalty=mask_penalty,
         onset_thresholds=thresholds, spectrogram=spectrogram, progress=progress, pitches=mask_pitches,
-        ghost_exempt=mask >= 1.0, settings=dataclasses.replace(settings, ghost_ratio=ghost_ratio),
+        ghost_exempt=score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance,
+                                floor=0.0, onsets_only=True) >= 1.0, settings=dataclasses.replace(settings, ghost_ratio=ghost_ratio),
     )

@@ -123,6 +123,13 @@ class Instrument:
         return GM_FAMILIES[self.program // 8]
 
     @property
+    def decaying(self) -> bool:
+        """Whether a note's sound dies away on its own (struck or plucked: piano, guitar, harp,
+        mallets, pizzicato), so the end of its sound does not show when it was released."""
+        return self.family in ("piano", "chromatic percussion", "guitar", "bass") or self.program in (45, 46, 47) \
+            or self.name in ("piano", "guitar", "mallets")
+
+    @property
     def pitches(self) -> np.ndarray:
         return np.arange(self.midi_range[0], self.midi_range[1] + 1)
 

@@ -303,8 +303,11 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
                                 progress=progress, alignment=alignment)
     if progress:
         progress("comparing with the part")
+    # a piano or plucked note's sound decays by itself: where the transcription ends it says
+    # little about when the key was released, so lengths are not judged for such instruments
     comparison = compare_notes(reference, alignment, result.notes, timing_tolerance=timing_tolerance,
-                               duration_tolerance=duration_tolerance)
+                               duration_tolerance=duration_tolerance,
+                               judge_durations=not result.instrument.decaying)
     return comparison, result, alignment
 
 

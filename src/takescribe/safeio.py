@@ -75,6 +75,10 @@ def atomic_write(path: str | os.PathLike, *, force: bool = False, mode: str = "w
             os.fsync(fh.fileno())
         if path.exists() and not force:
             raise OutputError(f"{path}: appeared while writing; pass --force to overwrite it")
+        # mkstemp creates the file readable by its owner only; give it the usual permissions
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
