@@ -519,11 +519,13 @@ def _grid_fit(onsets: np.ndarray, beats: np.ndarray | None, period: float) -> tu
     best = (-np.inf, float(onsets[0]), period)
     for phase in onsets[: min(len(onsets), 12)]:
         c, ph = period, float(phase)
-        for _ in range(2):
+        # refine on a growing window around the phase so a few % of period error does
+        # not drift the grid off the far onsets before the fit corrects it
+        for reach in (6, 12, 24, 48, np.inf):
             x = (onsets - ph) / c
             grid = np.where(np.abs(x * 4 - np.round(x * 4)) / 4 <= np.abs(x * 3 - np.round(x * 3)) / 3,
                             np.round(x * 4) / 4, np.round(x * 3) / 3)
-            ok = np.abs(x - grid) <= 0.08
+            ok = (np.abs(x - grid) <= 0.08) & (np.abs(x) <= reach)
             if np.sum(ok) < 3 or np.ptp(grid[ok]) <= 0:
                 break
             c_new, ph_new = np.polyfit(grid[ok], onsets[ok], 1)
@@ -782,7 +784,7 @@ def estimate_meter(
         # a known tempo: keep the tracked phase, impose the period
         beats = beats[0] + period * np.arange(len(beats))
     elif len(onsets) > 4 and len(beats) > 4:
-        beats, period = _check_tempo(_snap_beats(beats, onsets, period), period, onsets)
+        beats, period = _check_tempo(_snap_beats(beats, onsets, period, window=0.0), period, onsets)
     beats = _snap_beats(beats, onsets, period)
     first = float(onsets[0]) if len(onsets) else float(beats[0])
     last = max(n.offset for n in notes) if notes else float(beats[-1])
