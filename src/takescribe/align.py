@@ -117,6 +117,7 @@ _ENVELOPE_SECONDS = 1.5
 _LANDING_SECONDS = 0.1
 _NOISE_MARGIN = 4.0  # 6 dB in power
 _COVERAGE_FULL = 0.75
+_MAX_COARSE_CELLS = 16_000_000
 _CONFIDENCE_FRAMES = 1000
 _CONFIDENCE_GAIN = 2.0
 
@@ -696,7 +697,9 @@ def align_reference(
     hop_length : int, optional
         Frame step in samples; default the power of two nearest 23 ms (512 at 22050 Hz).
     coarse_factor : int
-        Frames pooled for the first, full-matrix pass.
+        Frames pooled for the first, full-matrix pass (raised automatically so that
+        pass stays under 16 million cells: about 12 minutes of take and part at
+        the default).
     band_radius : float
         Seconds around the coarse path searched at the full frame rate.
     onset_weight : float
@@ -753,6 +756,8 @@ def align_reference(
         return (_pool(t_chroma, factor, how="sum"), _pool(t_onset, factor, how="max"),
                 _pool(t_sounding[:, None].astype(float), factor, how="max")[:, 0])
 
+    # the full-matrix pass stays under _MAX_COARSE_CELLS cells however long the take and part
+    coarse_factor = max(int(coarse_factor), int(np.ceil(np.sqrt(n_rows * n_cols / _MAX_COARSE_CELLS))))
     coarse_take = pooled_take(coarse_factor)
     rows_c, cols_c, sim_coarse = pooled_path(coarse_factor, s_chroma, s_onset, coarse_take)
 
