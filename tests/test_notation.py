@@ -22,8 +22,8 @@ import pytest
 
 from takescribe.errors import InputError, OutputError
 from takescribe.notation import (
-    BeatGrid,
     Notation,
+    QuantizedNote,
     assign_voices,
     estimate_meter,
     notate,
@@ -32,12 +32,11 @@ from takescribe.notation import (
     spell_pitch,
     split_hands,
     write_musicxml,
-    QuantizedNote,
 )
 from takescribe.notes import Note
 
 music21 = pytest.importorskip("music21")
-from music21 import chord, converter, corpus, key, meter, note, stream, tempo  # noqa: E402
+from music21 import chord, converter, corpus, key, meter, note, stream  # noqa: E402
 
 SOUNDFONT = Path("/usr/share/sounds/sf2/FluidR3_GM.sf2")
 QUARTER_SECONDS = 0.6  # performance tempo: quarter = 100 per minute
