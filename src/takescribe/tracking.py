@@ -115,7 +115,8 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0) -
 
 
 def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
-                  novelty: np.ndarray | None = None, novelty_threshold: float = 1.0) -> list[int]:
+                  novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
+                  relaxed: np.ndarray | None = None) -> list[int]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``."""
     onsets = [start]
     if stop - start <= 2 * frames:
@@ -127,6 +128,10 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     gain = seg - prev_min
     rise = rise[start:stop]
     ok = (gain >= rise) & (prev_min <= dip * seg)
+    if relaxed is not None:
+        # where an onset of this pitch is expected, a smaller rise over a shallower dip will do
+        zone = relaxed[start:stop]
+        ok |= zone & (gain >= 0.5 * rise) & (prev_min <= min(1.5 * dip, 0.9) * seg)
     if novelty is not None:
         # a clear attack of this pitch's partials starts a note even without a dip
         nov = novelty[start:stop]
@@ -165,6 +170,7 @@ def activations_to_notes(
     novelty: np.ndarray | None = None,
     novelty_threshold: float = 0.5,
     novelty_snap: float = 0.1,
+    expected_onsets: np.ndarray | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -208,6 +214,10 @@ def activations_to_notes(
         that do not dip), and onsets snap to the strongest novelty peak of at least
         ``novelty_snap`` within 0.1 s before the rise.
     novelty_threshold, novelty_snap : float
+    expected_onsets : np.ndarray of bool (n_pitches, n_frames), optional
+        Where a note of the pitch is expected to start (score-informed mode): there a new
+        onset inside a sounding region needs only half the rise over a shallower dip, so
+        repeated chords of a part are split where they are written.
     attack_fraction : float
         The onset is placed where the activation, rising to the note's peak, crosses
         this fraction of the peak.
@@ -256,7 +266,8 @@ def activations_to_notes(
         for sl in scipy.ndimage.find_objects(labels):
             start, stop = sl[0].start, sl[0].stop
             onsets = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
-                                   None if novelty is None else novelty[k], novelty_threshold)
+                                   None if novelty is None else novelty[k], novelty_threshold,
+                                   None if expected_onsets is None else expected_onsets[k])
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]

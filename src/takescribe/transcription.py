@@ -186,8 +186,9 @@ def transcribe(
         ``onset_thresholds`` rows follow these pitches (only those on the frequency
         axis are kept, in order).
     ghost_exempt : np.ndarray of bool (n_pitches, n_frames), optional
-        Where a note is never dropped as a harmonic ghost (score-informed: where the
-        part expects the pitch). Rows follow ``pitches`` like ``mask``.
+        Where the part starts each pitch (score-informed): a note starting there is never
+        dropped as a harmonic ghost, and a re-onset there needs less evidence. Rows follow
+        ``pitches`` like ``mask``.
 
     Returns
     -------
@@ -263,6 +264,9 @@ def transcribe(
         novelty=pitch_novelty(V, final_dictionary.W) if settings.use_novelty else None,
         novelty_threshold=settings.novelty_threshold,
         novelty_snap=settings.novelty_snap,
+        # relaxed re-onsets serve repeated chords of struck instruments; on bowed and blown
+        # notes a slow attack would look like several onsets
+        expected_onsets=ghost_exempt if preset.polyphonic else None,
     )
     exempt = None
     if ghost_exempt is not None:

@@ -1,0 +1,104 @@
+"""Finding detection through the whole pipeline on the deviation takes.
+
+Usage::
+
+    python tests/benchmarks/bench_findings.py [--ground-truth]
+
+For every take in fixtures/deviations, runs ``takescribe.pipeline.compare_take`` (score-informed
+transcription, alignment, comparison) — or, with ``--ground-truth``, compares the played
+ground-truth notes, to separate comparison errors from transcription errors — and matches the
+findings to the injected deviations by kind, pitch and time within 0.25 s. Prints per take and
+per kind precision, recall and F-measure, and false findings per minute on the correct takes.
+"""
+
+from __future__ import annotations
+
+import argparse
+import collections
+import json
+import sys
+import warnings
+from pathlib import Path
+
+from takescribe.align import align_reference
+from takescribe.audio import load_audio
+from takescribe.compare import compare_notes
+from takescribe.noteio import read_maps
+from takescribe.pipeline import compare_take
+from takescribe.score import load_reference
+
+ROOT = Path(__file__).resolve().parents[2]
+DEV = ROOT / "fixtures" / "deviations"
+TIME_TOLERANCE = 0.25
+PITCHED = {"wrong_pitch": ("expected_pitch", "played_pitch"), "missed": ("expected_pitch",),
+           "extra": ("played_pitch",), "early": ("expected_pitch",), "late": ("expected_pitch",)}
+
+
+def match(found, injected):
+    """Greedy one-to-one matching of findings to injected deviations (kind, pitch, time)."""
+    used = set()
+    hits = []
+    for i, d in enumerate(injected):
+        best = None
+        for j, f in enumerate(found):
+            if j in used or f["kind"] != d["kind"]:
+                continue
+            if any(f.get(key) != d.get(key) for key in PITCHED.get(d["kind"], ())):
+                continue
+            dt = abs(f["time"] - d["time"])
+            if dt <= TIME_TOLERANCE and (best is None or dt < best[0]):
+                best = (dt, j)
+        if best is not None:
+            used.add(best[1])
+            hits.append((i, best[1]))
+    return hits
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--ground-truth", action="store_true")
+    args = parser.parse_args(argv)
+    index = json.loads((DEV / "index.json").read_text())
+    per_kind = collections.defaultdict(lambda: [0, 0, 0])  # hits, found, injected
+    false_per_minute = []
+    for e in index:
+        reference = load_reference(DEV / e["files"]["score"])
+        y, sr = load_audio(DEV / e["files"]["audio"])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            if args.ground_truth:
+                comparison = compare_notes(reference, align_reference(y, sr, reference, warn=False),
+                                           read_maps(DEV / e["files"]["notes"]),
+                                           judge_durations=e["instrument_program"] >= 8)
+            else:
+                comparison, _, _ = compare_take(y, sr, reference, instrument=e["instrument_program"])
+        # findings linked to a hesitation or a restart are part of that one event (the teacher reads one)
+        found = [f for f in comparison.to_json()["findings"] if f.get("linked_to") is None]
+        injected = json.loads((DEV / e["files"]["deviations"]).read_text())
+        hits = match(found, injected)
+        for i, j in hits:
+            per_kind[injected[i]["kind"]][0] += 1
+        for f in found:
+            per_kind[f["kind"]][1] += 1
+        for d in injected:
+            per_kind[d["kind"]][2] += 1
+        if not injected:
+            false_per_minute.append(len(found) / (len(y) / sr / 60))
+        extra = [f"{f['kind']}@{f['time']:.2f}" for j, f in enumerate(found) if j not in {h[1] for h in hits}]
+        missing = [f"{d['kind']}@{d['time']:.2f}" for i, d in enumerate(injected) if i not in {h[0] for h in hits}]
+        print(f"{e['name']:30s} injected {len(injected):2d} found {len(found):2d} hits {len(hits):2d}"
+              f"  unmatched findings: {' '.join(extra) or '-'}  not found: {' '.join(missing) or '-'}")
+    total = [sum(v[k] for v in per_kind.values()) for k in range(3)]
+    print("\nkind          precision recall  F")
+    for kind, (h, f, i) in sorted(per_kind.items()):
+        p = h / f if f else 1.0
+        r = h / i if i else 1.0
+        print(f"{kind:12s} {p:9.3f} {r:6.3f} {2 * p * r / (p + r) if p + r else 0:6.3f}   ({h} hits, {f} found, {i} injected)")
+    p, r = total[0] / max(total[1], 1), total[0] / max(total[2], 1)
+    print(f"overall      {p:9.3f} {r:6.3f} {2 * p * r / (p + r) if p + r else 0:6.3f}")
+    print(f"false findings per minute on correct takes: {', '.join(f'{x:.1f}' for x in false_per_minute)}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
