@@ -18,3 +18,20 @@ def musicxml_xsd_dir() -> Path:
     if not (MUSICXML_XSD_DIR / "musicxml.xsd").exists():
         pytest.skip(f"MusicXML 4.0 schema not found at {MUSICXML_XSD_DIR} (the shared standards folder is absent)")
     return MUSICXML_XSD_DIR
+
+
+@pytest.fixture(scope="session")
+def musicxml_schema():
+    """lxml validator for the official MusicXML 4.0 XSD (W3C Music Notation CG), offline.
+
+    musicxml.xsd imports xml.xsd and xlink.xsd by URL; as SOURCE.md in the schema folder says,
+    the imports are pointed at the local copies. Skips when the shared folder is absent.
+    """
+    if not (MUSICXML_XSD_DIR / "musicxml.xsd").exists():
+        pytest.skip(f"MusicXML 4.0 schema not found at {MUSICXML_XSD_DIR} (the shared standards folder is absent)")
+    from lxml import etree
+
+    text = (MUSICXML_XSD_DIR / "musicxml.xsd").read_text(encoding="utf-8")
+    text = text.replace("http://www.musicxml.org/xsd/xml.xsd", (MUSICXML_XSD_DIR / "xml.xsd").as_uri())
+    text = text.replace("http://www.musicxml.org/xsd/xlink.xsd", (MUSICXML_XSD_DIR / "xlink.xsd").as_uri())
+    return etree.XMLSchema(etree.fromstring(text.encode("utf-8"), base_url=(MUSICXML_XSD_DIR / "musicxml.xsd").as_uri()))
