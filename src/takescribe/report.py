@@ -234,7 +234,7 @@ def render_html(
     out.append(
         '<p class="caution"><strong>Please read:</strong> these are suggestions for a teacher to listen to and '
         "judge, not a grade. They come from a computer comparing the recording with the written part and can "
-        "be wrong, for example with a noisy recording, pedal or a deliberate change of tempo. "
+        "be wrong, for example with a noisy or reverberant recording, the sustain pedal or a deliberate change of tempo. "
         "The recording was processed on this computer only; nothing was sent anywhere.</p>"
     )
     n_part = summary.get("notes_in_part", 0)
@@ -294,13 +294,13 @@ def _marker(kind: str, x: float, y: float, size: float = 6.0) -> str:
     if st.shape == "diamond":
         return f'<path d="M{x},{y-s}L{x+s},{y}L{x},{y+s}L{x-s},{y}Z" {stroke}/>'
     if st.shape == "triangle-left":
-        return f'<path d="M{x-s},{y}L{x+s},{y-s}L{x+s},{y+s}Z" fill="{c}" stroke="#000" stroke-width=".6"/>'
+        return f'<path d="M{x-s},{y}L{x+s},{y-s}L{x+s},{y+s}Z" fill="{c}" stroke="#000" stroke-width="1.2"/>'
     if st.shape == "triangle-right":
-        return f'<path d="M{x+s},{y}L{x-s},{y-s}L{x-s},{y+s}Z" fill="{c}" stroke="#000" stroke-width=".6"/>'
+        return f'<path d="M{x+s},{y}L{x-s},{y-s}L{x-s},{y+s}Z" fill="{c}" stroke="#000" stroke-width="1.2"/>'
     if st.shape == "bar":
         return f'<path d="M{x-s},{y-s}L{x-s},{y+s}M{x-s},{y}L{x+s},{y}M{x+s},{y-s}L{x+s},{y+s}" {stroke}/>'
     if st.shape == "square":
-        return f'<rect x="{x-s}" y="{y-s}" width="{2*s}" height="{2*s}" fill="{c}" stroke="#000" stroke-width=".6"/>'
+        return f'<rect x="{x-s}" y="{y-s}" width="{2*s}" height="{2*s}" fill="{c}" stroke="#000" stroke-width="1.2"/>'
     if st.shape == "pause":
         return f'<path d="M{x-s*.5},{y-s}L{x-s*.5},{y+s}M{x+s*.5},{y-s}L{x+s*.5},{y+s}" stroke="{c}" stroke-width="2.4"/>'
     if st.shape == "arrow":
