@@ -368,9 +368,14 @@ def main(argv=None) -> int:
     parser.add_argument("--speed", action="store_true", help="add the speed section (several minutes)")
     args = parser.parse_args(argv)
     if args.json:
+        from takescribe.errors import OutputError
         from takescribe.safeio import check_writable
 
-        check_writable(args.json, force=args.force)
+        try:
+            check_writable(args.json, force=args.force)
+        except OutputError as exc:
+            print(f"bench: {exc}", file=sys.stderr)
+            return 4
 
     entries = json.loads((CORPUS / "index.json").read_text())
     if args.split != "all":
