@@ -59,7 +59,7 @@ from .nmf import decompose
 from .notes import Note, sort_notes
 from .spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
 from .tracking import activations_to_notes
-from .transcription import Transcription, TranscriptionSettings, _noise_templates, settings_for
+from .transcription import Transcription, TranscriptionSettings, noise_templates, settings_for
 
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
 
@@ -251,7 +251,7 @@ def transcribe_long(
         scale = total / max(n_frames, 1)
         K = initial.n_pitches
         n_noise = settings.noise_templates
-        noise = _noise_templates(initial.W.shape[0], n_noise)
+        noise = noise_templates(initial.W.shape[0], n_noise)
         if scale <= 0:
             warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
             return Transcription([], None, initial, initial, None, None, preset, timings)

@@ -23,7 +23,7 @@ from .notes import Note
 from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
 from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 
-__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "DEFAULT_SETTINGS",
+__all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "noise_templates", "DEFAULT_SETTINGS",
            "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram"]
 
 
@@ -123,7 +123,7 @@ class Transcription:
     timings: dict = field(default_factory=dict)
 
 
-def _noise_templates(n_bins: int, n_noise: int) -> np.ndarray:
+def noise_templates(n_bins: int, n_noise: int) -> np.ndarray:
     """Smooth broadband templates (flat, and tilted towards the bass and the treble).
 
     They absorb what no pitch template explains, chiefly the hammer and bow noise at
@@ -227,7 +227,7 @@ def transcribe(
     common = dict(beta=settings.beta, n_iter=settings.n_iter, tol=settings.tol, continuity=settings.continuity,
                   sparsity=settings.sparsity, mask=mask, mask_penalty=mask_penalty)
     K = initial.n_pitches
-    noise = _noise_templates(V.shape[0], settings.noise_templates)
+    noise = noise_templates(V.shape[0], settings.noise_templates)
     if mask is not None and settings.noise_templates:
         mask = np.vstack([mask, np.ones((settings.noise_templates, mask.shape[1]), mask.dtype)])
         common["mask"] = mask
