@@ -64,7 +64,7 @@ def test_local_run_transcribes_compares_and_reports_failures(folders, local_run)
 def test_resume_skips_finished_takes(folders, local_run, capsys):
     root, takes, scores = folders
     before = {k: p.stat().st_mtime_ns for k, p in _outputs(root / "local").items()}
-    code = main(["batch", str(takes), "-o", str(root / "local"), "--scores", str(scores), "--jobs", "2", "--quiet"])
+    code = main(["batch", str(takes), "-o", str(root / "local"), "--score-dir", str(scores), "--jobs", "2", "--quiet"])
     out = capsys.readouterr().out
     assert code == 1  # the broken take still fails
     assert "3 skipped" in out and "1 failed" in out
