@@ -128,10 +128,12 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     gain = seg - prev_min
     rise = rise[start:stop]
     ok = (gain >= rise) & (prev_min <= dip * seg)
+    only_relaxed = np.zeros(len(seg), dtype=bool)
     if relaxed is not None:
         # where an onset of this pitch is expected, a smaller rise over a shallower dip will do
         zone = relaxed[start:stop]
-        ok |= zone & (gain >= 0.5 * rise) & (prev_min <= min(1.5 * dip, 0.9) * seg)
+        only_relaxed = zone & (gain >= 0.5 * rise) & (prev_min <= min(1.5 * dip, 0.9) * seg) & ~ok
+        ok |= only_relaxed
     if novelty is not None:
         # a clear attack of this pitch's partials starts a note even without a dip
         nov = novelty[start:stop]
@@ -142,7 +144,9 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     candidates = np.nonzero(ok[1:-1] & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
     last = 0
     for c in candidates:
-        if c - last >= 2 * frames:
+        # a relaxed onset must also be well clear of the previous one: the expected-onset zone
+        # around a note's own start would otherwise split its attack
+        if c - last >= (5 if only_relaxed[c] else 2) * frames:
             onsets.append(start + int(c) - frames // 2)
             last = c
     return onsets
