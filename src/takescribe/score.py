@@ -31,12 +31,12 @@ Conventions
 
 from __future__ import annotations
 
+import errno
 import io
 import posixpath
 import re
 import warnings
 import zipfile
-import zlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence
@@ -64,6 +64,9 @@ DEFAULT_BPM = 120.0
 GRACE_QUARTERS = 0.125
 MAX_XML_BYTES = 50 * 1024 * 1024
 MAX_MIDI_BYTES = 20 * 1024 * 1024
+# bars laid out for a file without barlines (MIDI): 100 000 bars of 4/4 at 120 bpm are 55 hours,
+# far beyond any part, so more means a damaged file (and would otherwise exhaust memory)
+MAX_BARS = 100_000
 MUSICXML_SUFFIXES = (".musicxml", ".xml", ".mxl")
 MIDI_SUFFIXES = (".mid", ".midi")
 
@@ -227,6 +230,14 @@ def validate_reference(reference: object, *, name: str = "reference") -> Referen
 # --------------------------------------------------------------------------
 # shared helpers
 # --------------------------------------------------------------------------
+def _brief(exc: BaseException, limit: int = 200) -> str:
+    """``Type: message`` of ``exc`` on one line, cut to ``limit`` characters (errors print one line)."""
+    text = " ".join(str(exc).split())
+    if len(text) > limit:
+        text = text[: limit - 3] + "..."
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
 def _spell(midi: int, fifths: int) -> str:
     names = _FLAT_NAMES if fifths < 0 else _SHARP_NAMES
     return f"{names[midi % 12]}{midi // 12 - 1}"
@@ -314,13 +325,34 @@ def _place_graces(raw: list[_RawNote]) -> list[_RawNote]:
     return raw
 
 
-def _measure_grid(time_signatures: list, end_q: float) -> tuple[list[float], list[str]]:
-    """Bar starts from time signatures up to ``end_q`` (for files without bars, e.g. MIDI)."""
-    starts: list[float] = []
+def _check_time_signature(numerator: int, denominator: int, source: Path) -> None:
+    # SMF 1.0 stores the denominator as a power of two; 1..64 covers every written meter
+    # (whole note to 64th; common practice, no source), as does a numerator of 1..64
+    if not 1 <= numerator <= 64 or denominator not in (1, 2, 4, 8, 16, 32, 64):
+        den = str(denominator) if denominator < 10**6 else f"2**{denominator.bit_length() - 1}"
+        raise ScoreError(
+            f"{source}: impossible time signature {numerator}/{den} (expected 1..64 over 1, 2, 4, ..., 64); "
+            "the file is probably damaged; re-export it"
+        )
+
+
+def _measure_grid(time_signatures: list, end_q: float, *, source: Path = Path("?")) -> tuple[list[float], list[str]]:
+    """Bar starts from time signatures up to ``end_q`` (for files without bars, e.g. MIDI).
+
+    Raises :class:`ScoreError` for an impossible time signature or more than :data:`MAX_BARS` bars.
+    """
     ts = sorted(time_signatures)
+    for _, numerator, denominator in ts:
+        _check_time_signature(int(numerator), int(denominator), source)
+    starts: list[float] = []
     q = 0.0
     k = 0
     while q < end_q - _EPS or not starts:
+        if len(starts) >= MAX_BARS:
+            raise ScoreError(
+                f"{source}: the part would last more than {MAX_BARS} bars (its last note ends "
+                f"{end_q:.0f} quarter notes in); the file is probably damaged; re-export it"
+            )
         while k + 1 < len(ts) and ts[k + 1][0] <= q + _EPS:
             k += 1
         starts.append(q)
@@ -412,13 +444,11 @@ def _select(names: Sequence[str], part: object, source: Path) -> int:
 # MusicXML
 # --------------------------------------------------------------------------
 def _read_limited(fh, limit: int, what: str) -> bytes:
+    """Read ``fh`` to the end, refusing more than ``limit`` bytes (the caller maps read errors)."""
     chunks = []
     total = 0
     while True:
-        try:
-            chunk = fh.read(1 << 20)
-        except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
-            raise ScoreError(f"{what}: the archive is damaged ({exc}); re-export the score") from exc
+        chunk = fh.read(1 << 20)
         if not chunk:
             break
         total += len(chunk)
@@ -438,25 +468,60 @@ def _safe_member(name: str, source: Path) -> str:
 
 
 def _read_mxl(path: Path) -> bytes:
+    """The score member of a compressed MusicXML archive, every failure a :class:`ScoreError`."""
+    try:
+        return _read_mxl_member(path)
+    except ScoreError:
+        raise
+    except MemoryError:
+        raise
+    except RuntimeError as exc:
+        # zipfile's only RuntimeError on reading is an encrypted member without a password
+        if "encrypted" in str(exc) or "password" in str(exc):
+            raise ScoreError(
+                f"{path}: the .mxl archive is password-protected; export the score again without "
+                "encryption, or as uncompressed MusicXML (.musicxml)"
+            ) from exc
+        raise ScoreError(f"{path}: cannot unpack the .mxl archive ({_brief(exc)}); re-export it as MusicXML (.musicxml)") from exc
+    except NotImplementedError as exc:
+        # an unknown compression method or a newer zip version than Python's zipfile reads
+        raise ScoreError(
+            f"{path}: the .mxl archive uses a zip feature that cannot be unpacked here ({_brief(exc)}); "
+            "re-export it as uncompressed MusicXML (.musicxml)"
+        ) from exc
+    except OSError as exc:
+        if exc.errno in (errno.ENOENT, errno.EACCES, errno.EPERM, errno.EISDIR):
+            raise ScoreError(f"{path}: cannot be read ({exc.strerror}); check the path") from exc
+        raise ScoreError(
+            f"{path}: not a readable compressed MusicXML (.mxl) archive, it is damaged ({_brief(exc)}); "
+            "re-export it as MusicXML"
+        ) from exc
+    except Exception as exc:  # zipfile.BadZipFile, zlib.error, EOFError, ValueError, struct.error, ...
+        raise ScoreError(
+            f"{path}: not a readable compressed MusicXML (.mxl) archive, it is damaged ({_brief(exc)}); "
+            "re-export it as MusicXML"
+        ) from exc
+
+
+def _read_mxl_member(path: Path) -> bytes:
     import defusedxml.ElementTree as DET
 
-    try:
-        zf = zipfile.ZipFile(path)
-    except (zipfile.BadZipFile, OSError, ValueError) as exc:
-        raise ScoreError(f"{path}: not a readable compressed MusicXML (.mxl) archive ({exc}); re-export it") from exc
-    with zf:
+    with zipfile.ZipFile(path) as zf:
         names = zf.namelist()
         for n in names:
             _safe_member(n, path)
         rootfile = None
         if "META-INF/container.xml" in names:
-            container = _read_limited(zf.open("META-INF/container.xml"), 1 << 20, f"{path}: META-INF/container.xml")
+            with zf.open("META-INF/container.xml") as member:
+                container = _read_limited(member, 1 << 20, f"{path}: META-INF/container.xml")
             try:
                 croot = DET.fromstring(container, forbid_dtd=True)
             except Exception as exc:  # defusedxml and expat errors alike
-                raise ScoreError(f"{path}: META-INF/container.xml is not valid or safe XML ({exc}); re-export the file") from exc
+                raise ScoreError(
+                    f"{path}: META-INF/container.xml is not valid or safe XML ({_brief(exc)}); re-export the file"
+                ) from exc
             for el in croot.iter():
-                if el.tag.rsplit("}", 1)[-1] == "rootfile" and el.get("full-path"):
+                if isinstance(el.tag, str) and el.tag.rsplit("}", 1)[-1] == "rootfile" and el.get("full-path"):
                     rootfile = el.get("full-path")
                     break
         if rootfile is None:
@@ -473,7 +538,8 @@ def _read_mxl(path: Path) -> bytes:
                 "refusing to read it (a damaged or malicious file?). Export the part alone and try again."
             )
         # the declared size can lie: _read_limited counts what is really inflated
-        return _read_limited(zf.open(rootfile), MAX_XML_BYTES, f"{path}: {rootfile}")
+        with zf.open(rootfile) as member:
+            return _read_limited(member, MAX_XML_BYTES, f"{path}: {rootfile}")
 
 
 def _check_xml(data: bytes, path: Path) -> str:
@@ -488,13 +554,14 @@ def _check_xml(data: bytes, path: Path) -> str:
             "which MusicXML does not need and which can be used to attack a computer; re-export the score"
         ) from exc
     except Exception as exc:  # expat ParseError and friends
-        raise ScoreError(f"{path}: not well-formed XML ({exc}); is it a MusicXML file?") from exc
+        raise ScoreError(f"{path}: not well-formed XML ({_brief(exc)}); is it a MusicXML file?") from exc
     tag = root.tag.rsplit("}", 1)[-1] if isinstance(root.tag, str) else ""
     if tag not in ("score-partwise", "score-timewise"):
         raise ScoreError(
             f"{path}: XML but not MusicXML (root element <{tag}>, expected <score-partwise> or "
             "<score-timewise>); export the score as MusicXML"
         )
+    _check_meters(root, path)
     if tag == "score-timewise":
         # music21 reads partwise only; MusicXML defines the two as transpositions of each other
         return _timewise_to_partwise(root)
@@ -507,6 +574,25 @@ def _check_xml(data: bytes, path: Path) -> str:
     else:  # pragma: no cover - defusedxml already decoded it, so one of the above works
         raise ScoreError(f"{path}: cannot decode the XML text; save it as UTF-8")
     return text.lstrip("\ufeff")
+
+
+def _check_meters(root, path: Path) -> None:
+    """Refuse time signatures with more than 64 beats before music21 sees them.
+
+    music21's time to lay out a bar grows faster than linearly with the number of beats
+    (a 1000-beat bar takes about half a minute), so a damaged ``<beats>`` could hang the reader.
+    """
+    for el in root.iter():
+        if not isinstance(el.tag, str) or el.tag.rsplit("}", 1)[-1] != "beats":
+            continue
+        # MusicXML 4.0: <beats> is a string that may be composite, e.g. "3+2"
+        # (long digit strings are capped before int(), which refuses more than 4300 digits)
+        total = sum(int(d) if len(d) <= 6 else 10**6 for d in re.findall(r"\d+", el.text or "")[:65])
+        if total > 64:
+            raise ScoreError(
+                f"{path}: a time signature of more than 64 beats (<beats>{(el.text or '').strip()[:20]}</beats>); "
+                "at most 64 beats in a bar are read; the file is probably damaged; re-export it"
+            )
 
 
 def _timewise_to_partwise(root) -> str:
@@ -547,7 +633,7 @@ def _parse_musicxml(path: Path):
     try:
         score = converter.parseData(text, format="musicxml")
     except Exception as exc:  # music21 raises many kinds on odd files
-        raise ScoreError(f"{path}: music21 could not read this MusicXML ({type(exc).__name__}: {exc}); re-export it") from exc
+        raise ScoreError(f"{path}: music21 could not read this MusicXML ({_brief(exc)}); re-export it") from exc
     return score
 
 
@@ -573,7 +659,7 @@ def _expand(score, path: Path):
         return score.expandRepeats()
     except Exception as exc:  # music21 repeat expansion fails on some hand-made scores
         warnings.warn(
-            f"{path}: could not expand the repeats ({type(exc).__name__}: {exc}); using the written order, "
+            f"{path}: could not expand the repeats ({_brief(exc)}); using the written order, "
             "so bar numbers follow the page and repeated bars appear once",
             ScoreWarning, stacklevel=4,
         )
@@ -684,14 +770,15 @@ def _read_midi(path: Path):
     try:
         return mido.MidiFile(file=io.BytesIO(data))
     except Exception as exc:  # mido raises OSError, EOFError, ValueError, KeyError on damaged files
-        raise ScoreError(f"{path}: not a readable Standard MIDI File ({type(exc).__name__}: {exc}); re-export it") from exc
+        raise ScoreError(f"{path}: not a readable Standard MIDI File ({_brief(exc)}); re-export it") from exc
 
 
 def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str | None]:
     if mid.type == 2:
         raise ScoreError(f"{path}: MIDI type 2 (independent sequences) is not supported; export as type 0 or 1")
     tpq = mid.ticks_per_beat
-    if not tpq or tpq <= 0:
+    # SMF 1.0 header: a division with bit 15 set counts SMPTE frames, not ticks per quarter note
+    if not tpq or tpq <= 0 or tpq & 0x8000:
         raise ScoreError(f"{path}: SMPTE time division is not supported; export with ticks per quarter note")
     tempo_map, time_sigs = [], []
     key_fifths, mode = 0, None
@@ -706,6 +793,11 @@ def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str |
             tick += msg.time
             if msg.is_meta:
                 if msg.type == "set_tempo":
+                    if msg.tempo <= 0:
+                        raise ScoreError(
+                            f"{path}: a Set Tempo event of 0 microseconds per quarter note at tick {tick} "
+                            "(an infinite tempo); the file is damaged; re-export it"
+                        )
                     tempo_map.append((tick / tpq, 60e6 / msg.tempo))
                 elif msg.type == "time_signature":
                     time_sigs.append((tick / tpq, msg.numerator, msg.denominator))
@@ -830,7 +922,8 @@ def load_reference(path, *, part: int | str | None = None) -> Reference:
         if not time_sigs:
             time_sigs = [(0.0, 4, 4)]  # SMF default when no time signature is given
         end_q = max(r.q + r.dur for r in chosen.notes)
-        starts, labels = _measure_grid(time_sigs if time_sigs[0][0] <= _EPS else [(0.0, 4, 4)] + time_sigs, end_q)
+        starts, labels = _measure_grid(time_sigs if time_sigs[0][0] <= _EPS else [(0.0, 4, 4)] + time_sigs, end_q,
+                                       source=path)
         chosen.tempo_map = tempo_map
         chosen.time_signatures = time_sigs
         chosen.measure_starts = starts
