@@ -424,3 +424,173 @@ def test_timewise_reads_like_partwise(our_piece_paths, tmp_path, musicxml_xsd_di
     path.write_bytes(timewise)
     a, b = load_reference(xml), load_reference(path)
     assert a.notes == b.notes and a.tempo_map == b.tempo_map
+
+
+# --------------------------------------------------------------------------
+# damaged files found by tests/benchmarks/fuzz_readers.py: each is a ScoreError naming the file
+# --------------------------------------------------------------------------
+_TINY_PART = (b'<?xml version="1.0" encoding="UTF-8"?><score-partwise version="4.0"><part-list>'
+              b'<score-part id="P1"><part-name>Flute</part-name></score-part></part-list><part id="P1">'
+              b'<measure number="1"><attributes><divisions>1</divisions><time><beats>3</beats>'
+              b'<beat-type>4</beat-type></time></attributes><note><pitch><step>G</step><octave>4</octave>'
+              b'</pitch><duration>3</duration><type>half</type><dot/></note></measure></part></score-partwise>')
+
+
+def _tiny_mxl(compression=zipfile.ZIP_DEFLATED) -> bytearray:
+    import io
+
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", compression=compression) as zf:
+        zf.writestr("score.musicxml", _TINY_PART)
+    return bytearray(buffer.getvalue())
+
+
+def _headers(data: bytearray) -> tuple[int, int]:
+    # ZIP APPNOTE (PKWARE .ZIP File Format Specification) 4.3.7 and 4.3.12: the local file header
+    # starts "PK\x03\x04", the central directory header "PK\x01\x02"
+    return data.find(b"PK\x03\x04"), data.find(b"PK\x01\x02")
+
+
+def test_tiny_mxl_reads(tmp_path):
+    path = tmp_path / "tiny.mxl"
+    path.write_bytes(bytes(_tiny_mxl()))
+    assert [n.pitch for n in load_reference(path).notes] == [67]  # G4 = MIDI 67 (ISO 16 A4 = 69)
+
+
+def _damage(data: bytearray, how: str) -> bytearray:
+    local, central = _headers(data)
+    if how == "local-signature":
+        data[local:local + 4] = b"XXXX"  # the central directory still lists the member
+    elif how == "encrypted":
+        # APPNOTE 4.4.4: general purpose bit 0 marks an encrypted member (local +6, central +8)
+        data[local + 6] |= 1
+        data[central + 8] |= 1
+    elif how == "compression-method":
+        # APPNOTE 4.4.5: method 1 is "shrunk", which Python's zipfile does not unpack (local +8, central +10)
+        data[local + 8] = data[central + 10] = 1
+    elif how == "zip-version":
+        # APPNOTE 4.4.3: version needed to extract, 7.3 here (central +6)
+        data[central + 6] = 73
+    elif how == "deflate-stream":
+        start = local + 30 + len("score.musicxml")
+        data[start:start + 8] = b"\xff" * 8  # reserved block type 3 (RFC 1951, 3.2.3)
+    elif how == "truncated":
+        del data[central + 10:]
+    elif how == "member-name":
+        data[local + 30] ^= 0x20  # the local name no longer matches the central directory
+    return data
+
+
+@pytest.mark.parametrize("how, message", [
+    ("local-signature", "damaged.mxl: not a readable compressed MusicXML .* damaged .*BadZipFile.*re-export it as MusicXML"),
+    ("encrypted", "damaged.mxl: the .mxl archive is password-protected"),
+    ("compression-method", "damaged.mxl: the .mxl archive uses a zip feature that cannot be unpacked here"),
+    ("zip-version", "damaged.mxl: the .mxl archive uses a zip feature .*zip file version 7.3"),
+    ("deflate-stream", "damaged.mxl: not a readable compressed MusicXML .* damaged .*error"),
+    ("truncated", "damaged.mxl: not a readable compressed MusicXML"),
+    ("member-name", "damaged.mxl: not a readable compressed MusicXML .* damaged"),
+])
+def test_damaged_mxl_archives_are_score_errors(tmp_path, how, message):
+    path = tmp_path / "damaged.mxl"
+    path.write_bytes(bytes(_damage(_tiny_mxl(), how)))
+    with pytest.raises(ScoreError, match=message) as caught:
+        load_reference(path)
+    assert "\n" not in str(caught.value)  # the command line prints errors on one line
+
+
+def test_mxl_read_error_names_the_file(tmp_path, monkeypatch):
+    path = tmp_path / "part.mxl"
+    path.write_bytes(bytes(_tiny_mxl()))
+
+    def failing_read(self, *args, **kwargs):
+        raise OSError(5, "Input/output error")
+
+    monkeypatch.setattr(zipfile.ZipExtFile, "read", failing_read)
+    with pytest.raises(ScoreError, match="part.mxl: not a readable compressed MusicXML .*Input/output error"):
+        load_reference(path)
+
+
+def _midi_bytes(meta: bytes, *, ticks_per_quarter: int = 96, note_ticks: int = 96) -> bytes:
+    """A one-track SMF (format 0) with ``meta`` events first, then one note (SMF 1.0 layout, from memory)."""
+    def vlq(value):
+        out = [value & 0x7F]
+        value >>= 7
+        while value:
+            out.insert(0, 0x80 | (value & 0x7F))
+            value >>= 7
+        return bytes(out)
+
+    track = meta + b"\x00\x90\x3c\x40" + vlq(note_ticks) + b"\x80\x3c\x00" + b"\x00\xff\x2f\x00"
+    header = b"MThd" + (6).to_bytes(4, "big") + (0).to_bytes(2, "big") + (1).to_bytes(2, "big")
+    header += ticks_per_quarter.to_bytes(2, "big")
+    return header + b"MTrk" + len(track).to_bytes(4, "big") + track
+
+
+def test_midi_builder_reads(tmp_path):
+    path = tmp_path / "plain.mid"
+    # SMF 1.0 Time Signature meta event FF 58 04 nn dd cc bb: nn/2**dd, here 6/8
+    path.write_bytes(_midi_bytes(b"\x00\xff\x58\x04\x06\x03\x18\x08"))
+    ref = load_reference(path)
+    assert ref.time_signatures == ((0.0, 6, 8),) and ref.notes[0].pitch == 60
+
+
+@pytest.mark.parametrize("numerator, power, shown", [(3, 237, "3/2\\*\\*237"), (0, 2, "0/4"), (145, 2, "145/4"),
+                                                      (3, 7, "3/128")])
+def test_midi_impossible_time_signature_is_refused(tmp_path, numerator, power, shown):
+    # SMF 1.0: the denominator is stored as a power of two; a damaged byte of 237 once made every bar
+    # 2**-235 quarters long and the bar grid grew until memory ran out
+    path = tmp_path / "meter.mid"
+    path.write_bytes(_midi_bytes(bytes([0, 0xFF, 0x58, 4, numerator, power, 24, 8])))
+    with pytest.raises(ScoreError, match=f"meter.mid: impossible time signature {shown}"):
+        load_reference(path)
+
+
+def test_midi_too_many_bars_is_refused(tmp_path):
+    # the longest SMF delta time is 0x0FFFFFFF ticks (SMF 1.0 variable-length quantity, four bytes);
+    # at one tick per quarter the note would end 268 million quarters in
+    path = tmp_path / "long.mid"
+    path.write_bytes(_midi_bytes(b"", ticks_per_quarter=1, note_ticks=0x0FFFFFFF))
+    with pytest.raises(ScoreError, match="long.mid: the part would last more than 100000 bars"):
+        load_reference(path)
+
+
+def test_midi_zero_tempo_is_refused(tmp_path):
+    # SMF 1.0 Set Tempo FF 51 03 tttttt: microseconds per quarter note; 0 would be an infinite tempo
+    path = tmp_path / "tempo.mid"
+    path.write_bytes(_midi_bytes(b"\x00\xff\x51\x03\x00\x00\x00"))
+    with pytest.raises(ScoreError, match="tempo.mid: a Set Tempo event of 0 microseconds"):
+        load_reference(path)
+
+
+def test_musicxml_bar_of_too_many_beats_is_refused(tmp_path):
+    # music21 needs about half a minute for a 1000-beat bar (measured), so such a bar is refused first;
+    # a composite "3+2" (MusicXML 4.0 <beats> is a string) still reads
+    path = tmp_path / "wide.musicxml"
+    path.write_bytes(_TINY_PART.replace(b"<beats>3</beats>", b"<beats>1000</beats>"))
+    with pytest.raises(ScoreError, match=r"wide.musicxml: a time signature of more than 64 beats \(<beats>1000"):
+        load_reference(path)
+    path.write_bytes(_TINY_PART.replace(b"<beats>3</beats>", b"<beats>2+1</beats>"))
+    assert load_reference(path).notes[0].pitch == 67
+
+
+def test_music21_error_text_is_kept_on_one_line(tmp_path):
+    # a damaged <type> whose text holds a line break: music21 quotes it in its exception
+    path = tmp_path / "broken.musicxml"
+    path.write_bytes(_TINY_PART.replace(b"<type>half</type>", b"<type>ha\n\nlf</type>"))
+    with pytest.raises(ScoreError, match="broken.musicxml: music21 could not read") as caught:
+        load_reference(path)
+    assert "\n" not in str(caught.value)
+
+
+@pytest.mark.parametrize("per_minute", ["0", "-60"])
+def test_musicxml_tempo_mark_that_is_not_positive_is_ignored(tmp_path, per_minute):
+    # music21's getQuarterBPM divides by the mark's number, so 0 per minute raised ZeroDivisionError
+    mark = (f'<direction><direction-type><metronome><beat-unit>quarter</beat-unit><per-minute>{per_minute}'
+            '</per-minute></metronome></direction-type></direction>').encode()
+    path = tmp_path / "still.musicxml"
+    path.write_bytes(_TINY_PART.replace(b"</attributes>", b"</attributes>" + mark))
+    with pytest.warns(ScoreWarning, match="still.musicxml: ignoring a tempo mark"):
+        ref = load_reference(path)
+    # without a usable mark the written tempo is 120 quarter notes per minute (SMF 1.0 default, module docs)
+    assert ref.tempo_map == ((0.0, 120.0),)
+    assert ref.notes[0].offset == pytest.approx(1.5)

@@ -475,6 +475,12 @@ def _read_mxl(path: Path) -> bytes:
         raise
     except MemoryError:
         raise
+    except NotImplementedError as exc:
+        # (a RuntimeError subclass, so first) an unknown compression method or a newer zip version than Python's zipfile reads
+        raise ScoreError(
+            f"{path}: the .mxl archive uses a zip feature that cannot be unpacked here ({_brief(exc)}); "
+            "re-export it as uncompressed MusicXML (.musicxml)"
+        ) from exc
     except RuntimeError as exc:
         # zipfile's only RuntimeError on reading is an encrypted member without a password
         if "encrypted" in str(exc) or "password" in str(exc):
@@ -483,12 +489,6 @@ def _read_mxl(path: Path) -> bytes:
                 "encryption, or as uncompressed MusicXML (.musicxml)"
             ) from exc
         raise ScoreError(f"{path}: cannot unpack the .mxl archive ({_brief(exc)}); re-export it as MusicXML (.musicxml)") from exc
-    except NotImplementedError as exc:
-        # an unknown compression method or a newer zip version than Python's zipfile reads
-        raise ScoreError(
-            f"{path}: the .mxl archive uses a zip feature that cannot be unpacked here ({_brief(exc)}); "
-            "re-export it as uncompressed MusicXML (.musicxml)"
-        ) from exc
     except OSError as exc:
         if exc.errno in (errno.ENOENT, errno.EACCES, errno.EPERM, errno.EISDIR):
             raise ScoreError(f"{path}: cannot be read ({exc.strerror}); check the path") from exc
@@ -690,7 +690,16 @@ def _musicxml_part(score, group_index: int, path: Path, written=None) -> _RawPar
     for p in score.parts:
         for m in p.getElementsByClass(stream.Measure):
             for mm in m.recurse().getElementsByClass(tempo.MetronomeMark):
-                bpm = mm.getQuarterBPM()
+                try:
+                    bpm = mm.getQuarterBPM()
+                except (ArithmeticError, ValueError, TypeError):  # a mark of 0 per minute divides by zero
+                    bpm = float("nan")
+                if bpm is not None and not (np.isfinite(bpm) and bpm > 0):
+                    warnings.warn(
+                        f"{path}: ignoring a tempo mark of {mm.number} per minute in bar {m.number} "
+                        "(not a positive number)", ScoreWarning, stacklevel=4,
+                    )
+                    bpm = None
                 if bpm:
                     q = round(float(m.offset + mm.getOffsetInHierarchy(m)), 9)
                     printed = 0 if (mm.number is not None and mm.numberImplicit is False) else 1
