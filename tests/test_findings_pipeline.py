@@ -3,11 +3,13 @@
 Fixtures: the held-out deviation pieces (piano waltz, violin minuet) in fixtures/deviations,
 rendered with sampled GM soundfonts; injected deviations are the ground truth. A finding
 matches an injected deviation by kind, pitch and time within 0.25 s; findings linked to a
-hesitation or restart belong to that one event. Measured on 2026-12-02: F = 0.85 (17 of 18
-found, 22 findings), false findings per minute on the correct takes 12.0, 4.2 and 0.0; the
-floors are those figures minus 0.05 (or plus a margin for the false-finding rate). The
-issue's targets (F >= 0.90, <= 1 false finding a minute) are not met yet on piano; the gap
-comes from the transcription (chord notes missed, notes split), see
+hesitation or restart belong to that one event. Measured on 2026-12-02: F = 0.89 (17 of 18
+found, 20 findings), false findings per minute on the correct takes 0.0 (piano), 4.2 (piano,
+slower take) and 0.0 (violin); the floors are those figures minus 0.05 (or one more false
+finding for the rate). The issue's targets (F >= 0.90 for every kind, <= 1 false finding a
+minute) are not met on all pieces yet (over all 19 deviation takes F = 0.72, the cello and
+the piano march weakest); the gap comes from the transcription (chord notes missed, repeated
+bowed notes merged), see
 tests/benchmarks/bench_findings.py --ground-truth for the comparison alone (F = 1.0).
 """
 
@@ -67,7 +69,7 @@ def test_finding_detection_f_measure(results):
     precision, recall = hits / n_found, hits / n_injected
     f = 2 * precision * recall / (precision + recall)
     assert n_injected >= 15
-    assert f >= 0.80, f"precision {precision:.2f} recall {recall:.2f} F {f:.2f}"
+    assert f >= 0.84, f"precision {precision:.2f} recall {recall:.2f} F {f:.2f}"
     assert recall >= 0.89
 
 
@@ -76,5 +78,5 @@ def test_false_findings_on_correct_takes(results):
         if injected:
             continue
         per_minute = len(found) / (seconds / 60)
-        limit = 2.0 if e["instrument_program"] >= 8 else 15.0  # melodic: measured 0; piano: 12 and 4
+        limit = 2.0 if e["instrument_program"] >= 8 else 9.0  # measured 0 (violin); 0 and 4.2 (piano)
         assert per_minute <= limit, f"{e['name']}: {per_minute:.1f} false findings per minute"
