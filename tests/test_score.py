@@ -482,7 +482,8 @@ def _damage(data: bytearray, how: str) -> bytearray:
 
 
 @pytest.mark.parametrize("how, message", [
-    ("local-signature", "damaged.mxl: not a readable compressed MusicXML .* damaged .*BadZipFile.*re-export it as MusicXML"),
+    ("local-signature",
+     "damaged.mxl: not a readable compressed MusicXML .* damaged .*BadZipFile.*re-export it as MusicXML"),
     ("encrypted", "damaged.mxl: the .mxl archive is password-protected"),
     ("compression-method", "damaged.mxl: the .mxl archive uses a zip feature that cannot be unpacked here"),
     ("zip-version", "damaged.mxl: the .mxl archive uses a zip feature .*zip file version 7.3"),

@@ -26,7 +26,14 @@ Conventions
 - Untrusted files: XML is checked with defusedxml before music21 sees it
   (no external entities, no entity expansion); ``.mxl`` archives are opened
   here with a size limit (:data:`MAX_XML_BYTES`) so a zip bomb cannot exhaust
-  memory; member names that are absolute or contain ``..`` are refused.
+  memory; member names that are absolute or contain ``..`` are refused. Every
+  failure to unpack one (damaged, encrypted, unknown compression) is a
+  :class:`~takescribe.errors.ScoreError`.
+- Damaged values are refused before they can hang the reader: a MIDI time
+  signature outside 1..64 over 1, 2, 4, ..., 64, a MIDI part longer than
+  :data:`MAX_BARS` bars, a Set Tempo of 0, a MusicXML bar of more than 64 beats
+  (music21 slows down steeply with the number of beats). A MusicXML tempo mark
+  that is not a positive number is ignored with a :class:`ScoreWarning`.
 """
 
 from __future__ import annotations
@@ -476,7 +483,8 @@ def _read_mxl(path: Path) -> bytes:
     except MemoryError:
         raise
     except NotImplementedError as exc:
-        # (a RuntimeError subclass, so first) an unknown compression method or a newer zip version than Python's zipfile reads
+        # (a RuntimeError subclass, so caught first) an unknown compression method, or a newer
+        # zip version than Python's zipfile reads
         raise ScoreError(
             f"{path}: the .mxl archive uses a zip feature that cannot be unpacked here ({_brief(exc)}); "
             "re-export it as uncompressed MusicXML (.musicxml)"
@@ -488,7 +496,9 @@ def _read_mxl(path: Path) -> bytes:
                 f"{path}: the .mxl archive is password-protected; export the score again without "
                 "encryption, or as uncompressed MusicXML (.musicxml)"
             ) from exc
-        raise ScoreError(f"{path}: cannot unpack the .mxl archive ({_brief(exc)}); re-export it as MusicXML (.musicxml)") from exc
+        raise ScoreError(
+            f"{path}: cannot unpack the .mxl archive ({_brief(exc)}); re-export it as MusicXML (.musicxml)"
+        ) from exc
     except OSError as exc:
         if exc.errno in (errno.ENOENT, errno.EACCES, errno.EPERM, errno.EISDIR):
             raise ScoreError(f"{path}: cannot be read ({exc.strerror}); check the path") from exc
