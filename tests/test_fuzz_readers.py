@@ -9,7 +9,7 @@ of these few-kB files fails too (a hang or a memory blow-up). Readers that do no
 exist yet are skipped with the reason.
 
 hypothesis runs derandomized (the same examples on every run) so CI is repeatable;
-``benchmarks/fuzz_readers.py`` runs the same mutations many more times.
+``tests/benchmarks/fuzz_readers.py`` runs the same mutations many more times.
 The seed files are of our own invention (short synthetic tones, a four-note tune).
 """
 
@@ -144,7 +144,7 @@ def audio_seeds() -> dict[str, bytes]:
 
 
 # ---------------------------------------------------------------------------
-# mutations, shared with benchmarks/fuzz_readers.py
+# mutations, shared with tests/benchmarks/fuzz_readers.py
 
 MUTATION_KINDS = ("truncate", "flip", "set", "insert", "delete", "header")
 # (kind, relative position in [0, 1), byte value)

@@ -2,9 +2,9 @@
 
 Usage::
 
-    python benchmarks/fuzz_readers.py                      # 20000 examples per reader input
-    python benchmarks/fuzz_readers.py --examples 2000 --only audio midi
-    python benchmarks/fuzz_readers.py --seed 7 --show 3
+    python tests/benchmarks/fuzz_readers.py                      # 20000 examples per reader input
+    python tests/benchmarks/fuzz_readers.py --examples 2000 --only audio midi
+    python tests/benchmarks/fuzz_readers.py --seed 7 --show 3
 
 Each reader gets mutated valid files (and, for audio and note lists, random
 input) from the same seeds and mutations as ``tests/test_fuzz_readers.py``. The
@@ -34,7 +34,7 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent / "tests"))
+sys.path.insert(0, str(HERE.parent))
 
 import test_fuzz_readers as fuzz  # noqa: E402  (seeds and mutations shared with the tests)
 
