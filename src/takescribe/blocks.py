@@ -58,7 +58,7 @@ from .instruments import Instrument, resolve_instrument
 from .nmf import decompose
 from .notes import Note, sort_notes
 from .spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
-from .tracking import activations_to_notes
+from .tracking import activations_to_notes, pitch_novelty
 from .transcription import Transcription, TranscriptionSettings, noise_templates, settings_for
 
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
@@ -107,19 +107,8 @@ def _frame_start(V: np.ndarray, W_colsum_mean: float, K: int) -> np.ndarray:
 
 
 def _novelty(V: np.ndarray, W: np.ndarray, peak: float, *, compression: float = 100.0) -> np.ndarray:
-    """Unscaled per-pitch onset novelty of :func:`takescribe.tracking.pitch_novelty` with the take's peak.
-
-    ``pitch_novelty`` takes the peak of V and its 99.5th-percentile scale from the
-    array it is given; a block must use the whole take's instead (the scale is
-    applied by the caller), so the formula is repeated here with ``peak`` given.
-    """
-    if peak <= 0 or V.shape[1] < 2:
-        return np.zeros((W.shape[1], V.shape[1]), np.float32)
-    L = np.log1p(V * np.float32(compression / peak))
-    D = np.zeros_like(L)
-    np.subtract(L[:, 1:], L[:, :-1], out=D[:, 1:])
-    np.maximum(D, 0.0, out=D)
-    return np.asarray(W, dtype=np.float32).T @ D
+    """Unscaled per-pitch onset novelty with the whole take's peak (the caller applies the scale)."""
+    return pitch_novelty(V, W, compression=compression, peak=peak, scale=1.0)
 
 
 def transcribe_long(

@@ -84,7 +84,8 @@ def monophonic_activations(Hn: np.ndarray, *, silence_level: float = 0.1, stay_p
     return out
 
 
-def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0) -> np.ndarray:
+def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, peak: float | None = None,
+                  scale: float | None = None) -> np.ndarray:
     """Per-pitch onset novelty: log-compressed spectral flux weighted by each template.
 
     ``N = Wᵀ · max(0, Δ_t log(1 + compression·V/max V))``: large where the partials of a
@@ -97,12 +98,19 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0) -
     W : np.ndarray (n_bins, n_pitches)
         Templates (columns sum to 1).
 
+    peak : float, optional
+        Level that ``compression`` is relative to; default ``V.max()`` (a block of a long
+        take passes the whole take's).
+    scale : float, optional
+        Divisor of the result; default its own 99.5th percentile (1.0 returns it unscaled).
+
     Returns
     -------
-    np.ndarray (n_pitches, n_frames), scaled so its 99.5th percentile is 1.
+    np.ndarray (n_pitches, n_frames), scaled so its 99.5th percentile is 1 by default.
     """
     V = np.asarray(V, dtype=np.float32)
-    peak = float(V.max()) if V.size else 0.0
+    if peak is None:
+        peak = float(V.max()) if V.size else 0.0
     if peak <= 0 or V.shape[1] < 2:
         return np.zeros((W.shape[1], V.shape[1]), np.float32)
     L = np.log1p(V * np.float32(compression / peak))
@@ -110,7 +118,8 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0) -
     np.subtract(L[:, 1:], L[:, :-1], out=D[:, 1:])
     np.maximum(D, 0.0, out=D)
     N = np.asarray(W, dtype=np.float32).T @ D
-    scale = float(np.percentile(N, 99.5))
+    if scale is None:
+        scale = float(np.percentile(N, 99.5))
     return N / scale if scale > 0 else N
 
 
