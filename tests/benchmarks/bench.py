@@ -210,13 +210,13 @@ def _problem():
     from takescribe.dictionary import harmonic_dictionary
     from takescribe.pipeline import load_take
     from takescribe.spectrogram import compute_spectrogram
-    from takescribe.transcription import _noise_templates, normalize_spectrogram
+    from takescribe.transcription import noise_templates, normalize_spectrogram
 
     y, sr = load_take(CORPUS / "tuning" / "piano_scales.flac")
     y = np.tile(y, 3)  # ~34 s: T large enough for steady timings
     spec = compute_spectrogram(y, sr)
     V, _ = normalize_spectrogram(spec.V)
-    W = np.hstack([harmonic_dictionary(spec, instrument=0).W, _noise_templates(V.shape[0], 3)]).astype(np.float32)
+    W = np.hstack([harmonic_dictionary(spec, instrument=0).W, noise_templates(V.shape[0], 3)]).astype(np.float32)
     return np.ascontiguousarray(V, dtype=np.float32), W
 
 
