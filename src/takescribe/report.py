@@ -354,7 +354,10 @@ def _piano_roll_rows(comparison: Comparison, reference: Any, *, draft_notes=None
 
 def _row_svg(comparison, notes, played, exp_on, exp_off, times, restarts, t0, t1, row) -> str:
     width, left, px_per_pitch = 1000.0, 34.0, 7.0
-    in_row_ref = [i for i in range(len(notes)) if exp_on[i] < t1 and exp_off[i] > t0]
+    # a note belongs to the row where it starts, or to a row it reaches well into
+    # (not a sliver spilling over from the row before)
+    in_row_ref = [i for i in range(len(notes))
+                  if exp_on[i] < t1 and (exp_on[i] >= t0 or exp_off[i] > t0 + 0.05)]
     in_row_played = [n for n in played if n.onset < t1 and n.offset > t0]
     row_findings = [f for f in comparison.findings if t0 <= f.time < t1]
     pitches = [notes[i].pitch for i in in_row_ref] + [n.pitch for n in in_row_played]
@@ -496,7 +499,7 @@ def _findings_table(comparison: Comparison) -> str:
     if not comparison.findings:
         return "<p>Nothing to point out: every note of the part was heard in time.</p>"
     esc = html.escape
-    rows = ["<table><thead><tr><th>#</th><th>kind</th><th>bar</th><th>beat</th><th>time</th><th>expected</th>"
+    rows = ['<div style="overflow-x:auto"><table><thead><tr><th>#</th><th>kind</th><th>bar</th><th>beat</th><th>time</th><th>expected</th>"
             "<th>played</th><th>off by</th><th>what happened</th></tr></thead><tbody>"]
     for f in comparison.findings:
         st = KIND_STYLES[f.kind]
@@ -512,7 +515,7 @@ def _findings_table(comparison: Comparison) -> str:
             f"<td class=\"num\">{esc(_format_deviation(f.kind, f.deviation))}</td>"
             f"<td>{esc(f.text)}{'' if f.linked_to is None else f' (see #{f.linked_to})'}</td></tr>"
         )
-    rows.append("</tbody></table>")
+    rows.append("</tbody></table></div>")
     return "".join(rows)
 
 
