@@ -499,7 +499,8 @@ def _findings_table(comparison: Comparison) -> str:
     if not comparison.findings:
         return "<p>Nothing to point out: every note of the part was heard in time.</p>"
     esc = html.escape
-    rows = ['<div style="overflow-x:auto"><table><thead><tr><th>#</th><th>kind</th><th>bar</th><th>beat</th><th>time</th><th>expected</th>"
+    rows = ['<div style="overflow-x:auto"><table><thead><tr><th>#</th><th>kind</th><th>bar</th><th>beat</th>'
+            "<th>time</th><th>expected</th>"
             "<th>played</th><th>off by</th><th>what happened</th></tr></thead><tbody>"]
     for f in comparison.findings:
         st = KIND_STYLES[f.kind]
