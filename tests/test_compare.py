@@ -543,3 +543,20 @@ def test_findings_do_not_depend_on_the_order_of_the_played_notes():
         for f in result.findings:
             if f.played_index is not None:
                 assert shuffled[f.played_index].pitch == f.played_pitch
+
+
+def test_faint_evidence_makes_a_missing_note_uncertain_not_missed():
+    # a note absent from the draft but heard faintly where it should sound is not blamed on
+    # the player; faint evidence of another pitch, or far away in time, changes nothing
+    ref = study()
+    played = render(ref)
+    singles = _single_line(ref)
+    k = singles[7]
+    gone = played.pop(k)
+    faint_here = [Note(gone.onset + 0.04, gone.offset, gone.pitch, 20)]
+    result = compare_notes(ref, None, played, faint_notes=faint_here)
+    assert kinds(result) == Counter()
+    assert result.note_status[k] == "uncertain"
+    elsewhere = [Note(gone.onset + 0.6, gone.offset + 0.6, gone.pitch, 20), Note(gone.onset, gone.offset, gone.pitch + 1, 20)]
+    result = compare_notes(ref, None, played, faint_notes=elsewhere)
+    assert kinds(result) == Counter({"missed": 1})

@@ -235,7 +235,8 @@ class Comparison:
     summary : dict
         See the module docstring.
     note_status : tuple of str
-        Per reference note: ``"played"``, ``"wrong_pitch"`` or ``"missed"``.
+        Per reference note: ``"played"``, ``"wrong_pitch"``, ``"missed"`` or ``"uncertain"``
+        (faint evidence only, no finding; see ``faint_notes``).
     played_status : tuple of str
         Per played note: ``"matched"`` (paired with a reference note, right or wrong
         pitch) or ``"extra"``.
@@ -923,6 +924,7 @@ def compare_notes(
     neighbours: int = 4,
     min_restart_notes: int = 3,
     judge_durations: bool = True,
+    faint_notes: Sequence[Note] | None = None,
 ) -> Comparison:
     """Compare the notes of a take with the reference part.
 
@@ -958,6 +960,12 @@ def compare_notes(
         Report ``held_short`` / ``held_long``. Turn off when the note ends are not reliable
         (a transcription of a piano or plucked take, where the end of a note is the end of
         its audible decay rather than the player's release).
+    faint_notes : sequence of Note, optional
+        Notes heard only faintly (below the draft's threshold, where the part expects them;
+        :func:`takescribe.informed.faint_notes`). A part note that would be ``missed`` but has a
+        faint note of its pitch starting within 0.15 s of where it should sound gets the status
+        ``"uncertain"`` and no finding: the evidence is too weak to put it in the draft and too
+        strong to tell the player it was not played.
 
     Returns
     -------
@@ -1211,8 +1219,16 @@ def compare_notes(
             deviation=float(step), reference_index=i, played_index=j,
             text=(f"{_bar(pos)}: played {pitch_name(played_pitch[j])} where the part has "
                   f"{pitch_name(part.pitches[i])} ({step:+d} semitone{'s' if abs(step) != 1 else ''})."))
+    faint_onsets: dict[int, list] = {}
+    for n in faint_notes or ():
+        faint_onsets.setdefault(int(n.pitch), []).append(n.onset)
     for i in range(n_ref):
         if note_status[i] == "missed":
+            heard = np.asarray(faint_onsets.get(int(part.pitches[i]), []), dtype=float)
+            if heard.size and np.min(np.abs(heard - predicted[i])) <= _FAINT_WINDOW:
+                # some evidence the note sounded: too faint for the draft, too much to blame the player
+                note_status[i] = "uncertain"
+                continue
             pos = where(i)
             add("missed", predicted[i], **pos, expected_pitch=int(part.pitches[i]), reference_index=i,
                 text=f"{_bar(pos)}: {pitch_name(part.pitches[i])} in the part was not heard.")
@@ -1354,6 +1370,8 @@ def _local_rate(s_sorted: np.ndarray, q_sorted: np.ndarray, s: float) -> float:
         dq, ds = q_sorted[-1] - q_sorted[0], s_sorted[-1] - s_sorted[0]
     return float(ds / dq) if dq > 0 else 0.5
 
+
+_FAINT_WINDOW = 0.15  # seconds between a faint note and where a part note should sound
 
 _KIND_ORDER = {k: n for n, k in enumerate(("restart", "hesitation", "wrong_pitch", "missed", "extra", "early", "late", "held_short", "held_long"))}
 

@@ -36,9 +36,10 @@ from .dictionary import Dictionary
 from .instruments import Instrument, resolve_instrument
 from .score import Reference, validate_reference
 from .spectrogram import compute_spectrogram
+from .tracking import activations_to_notes
 from .transcription import Transcription, TranscriptionSettings, settings_for, transcribe
 
-__all__ = ["score_mask", "informed_transcription", "INFORMED_DEFAULTS"]
+__all__ = ["score_mask", "informed_transcription", "faint_notes", "INFORMED_DEFAULTS"]
 
 # tuned on the deviation takes of the cello ballad, flute and piano march (see DEVELOPERS.md);
 # confirmed on the piano waltz and violin minuet
@@ -188,4 +189,45 @@ def informed_transcription(
         onset_thresholds=thresholds, spectrogram=spectrogram, progress=progress, pitches=mask_pitches,
         ghost_exempt=score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance,
                                 floor=0.0, onsets_only=True) >= 1.0, settings=dataclasses.replace(settings, ghost_ratio=ghost_ratio),
+    )
+
+
+def faint_notes(
+    transcription: Transcription,
+    reference: Reference,
+    alignment: Alignment | None,
+    *,
+    factor: float = 0.3,
+    tolerance: float = INFORMED_DEFAULTS["tolerance"],
+) -> list:
+    """Notes the part expects that the activations show only faintly.
+
+    Tracks ``transcription.H`` again with onset thresholds ``factor`` times the usual ones,
+    only where the part starts a pitch (± ``tolerance``). These notes never enter the draft;
+    the comparison uses them to avoid telling a player that a note they played quietly (or
+    that the factorization explained with another note's partials) was missed
+    (:func:`takescribe.compare.compare_notes`, ``faint_notes``).
+
+    Parameters
+    ----------
+    transcription : Transcription
+        A (score-informed) transcription with its spectrogram and activations.
+    reference, alignment : the part and its alignment with the take.
+    factor : float
+        Threshold multiplier (0 < factor <= 1).
+    """
+    if not 0 < factor <= 1:
+        raise ValueError(f"factor must be in range (0, 1], got {factor}")
+    if transcription.H is None or transcription.spectrogram is None:
+        return []
+    settings = settings_for(transcription.instrument)
+    times = transcription.spectrogram.frame_times
+    expected = score_mask(reference, alignment, transcription.dictionary.pitches, times, tolerance=tolerance,
+                          floor=0.0, onsets_only=True) >= 1.0
+    thresholds = np.where(expected, settings.onset_threshold * factor, np.inf)
+    return activations_to_notes(
+        transcription.H, transcription.dictionary.pitches, times, onset_threshold=thresholds,
+        offset_threshold=settings.offset_threshold * factor, release_ratio=settings.release_ratio,
+        reonset_rise=settings.reonset_rise * factor, reonset_dip=0.9, min_duration=0.03,
+        polyphonic=transcription.instrument.polyphonic, local_floor=settings.local_floor,
     )

@@ -22,7 +22,7 @@ from .blocks import LONG_TAKE_SECONDS, transcribe_long
 from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, load_dictionary, save_dictionary
 from .errors import InputError, ScoreError
 from .evaluate import evaluate_notes
-from .informed import informed_transcription, score_mask
+from .informed import faint_notes, informed_transcription, score_mask
 from .instruments import Instrument, resolve_instrument
 from .midi import MidiTrack, midi_bytes, write_midi
 from .nmf import decompose
@@ -307,7 +307,8 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
     # little about when the key was released, so lengths are not judged for such instruments
     comparison = compare_notes(reference, alignment, result.notes, timing_tolerance=timing_tolerance,
                                duration_tolerance=duration_tolerance,
-                               judge_durations=not result.instrument.decaying)
+                               judge_durations=not result.instrument.decaying,
+                               faint_notes=faint_notes(result, reference, alignment))
     return comparison, result, alignment
 
 
