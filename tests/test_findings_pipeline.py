@@ -7,7 +7,7 @@ hesitation or restart belong to that one event. Measured on 2026-12-02: F = 0.89
 found, 20 findings), false findings per minute on the correct takes 0.0 (piano), 4.2 (piano,
 slower take) and 0.0 (violin); the floors are those figures minus 0.05 (or one more false
 finding for the rate). The issue's targets (F >= 0.90 for every kind, <= 1 false finding a
-minute) are not met on all pieces yet (over all 19 deviation takes F = 0.72, the cello and
+minute) are not met on all pieces yet (over all 19 deviation takes F = 0.77, the cello and
 the piano march weakest); the gap comes from the transcription (chord notes missed, repeated
 bowed notes merged), see
 tests/benchmarks/bench_findings.py --ground-truth for the comparison alone (F = 1.0).
