@@ -159,16 +159,11 @@ def test_demo_writes_reports_and_drafts(demo):
         assert music21.converter.parse(str(folder / "draft.musicxml")).recurse().notes
 
 
-def test_draft_musicxml_is_valid_musicxml_4(demo, musicxml_xsd_dir):
+def test_draft_musicxml_is_valid_musicxml_4(demo, musicxml_schema):
     from lxml import etree
 
-    # reference: the official MusicXML 4.0 XSD (shared standards folder); its two network
-    # imports point at the local copies, as its SOURCE.md says
-    text = (musicxml_xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
-    for name in ("xml.xsd", "xlink.xsd"):
-        text = text.replace(f"http://www.musicxml.org/xsd/{name}", (musicxml_xsd_dir / name).as_uri())
-    schema = etree.XMLSchema(etree.fromstring(text.encode("utf-8"),
-                                              base_url=(musicxml_xsd_dir / "musicxml.xsd").as_uri()))
+    # reference: the official MusicXML 4.0 XSD (shared standards folder, see conftest)
+    schema = musicxml_schema
     for s in demo.students:
         for name in ("draft.musicxml", "annotated.musicxml"):
             doc = etree.parse(str(demo.output_dir / s.folder / name))

@@ -295,15 +295,11 @@ def test_deviation_take_note_counts(dev_index):
         assert takes["pitch"]["notes_count"] == n + in_bar, piece
 
 
-def test_scores_valid_against_musicxml_4_schema(index, dev_index, musicxml_xsd_dir):
+def test_scores_valid_against_musicxml_4_schema(index, dev_index, musicxml_schema):
     from lxml import etree
 
-    # the schema's xml.xsd / xlink.xsd imports point at the local copies (see SOURCE.md there)
-    text = (musicxml_xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
-    for name in ("xml.xsd", "xlink.xsd"):
-        text = text.replace(f"http://www.musicxml.org/xsd/{name}", (musicxml_xsd_dir / name).as_uri())
-    schema = etree.XMLSchema(etree.fromstring(text.encode("utf-8"),
-                                              base_url=(musicxml_xsd_dir / "musicxml.xsd").as_uri()))
+    # reference: the official MusicXML 4.0 XSD (shared standards folder, see conftest)
+    schema = musicxml_schema
     parser = etree.XMLParser(no_network=True, load_dtd=False, resolve_entities=False)
     paths = {CORPUS / e["files"]["score"] for e in index} | {DEVIATIONS / e["files"]["score"] for e in dev_index}
     for path in sorted(paths):

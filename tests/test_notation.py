@@ -336,17 +336,6 @@ def agreement(truth: list[tuple], got: list[tuple], *, relative_bars: bool) -> f
     return sum((t & g).values()) / max(1, sum(t.values()))
 
 
-def xsd_schema(xsd_dir: Path):
-    """The MusicXML 4.0 schema with its xml.xsd / xlink.xsd imports pointed at the local copies
-    (as SOURCE.md in the standards folder describes)."""
-    from lxml import etree
-
-    text = (xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
-    text = text.replace("http://www.musicxml.org/xsd/xml.xsd", (xsd_dir / "xml.xsd").as_uri())
-    text = text.replace("http://www.musicxml.org/xsd/xlink.xsd", (xsd_dir / "xlink.xsd").as_uri())
-    return etree.XMLSchema(etree.fromstring(text.encode("utf-8"), base_url=(xsd_dir / "musicxml.xsd").as_uri()))
-
-
 def validate_xml(path: Path, schema) -> None:
     from lxml import etree
 
@@ -357,15 +346,10 @@ def validate_xml(path: Path, schema) -> None:
 _FIGURES: dict[str, dict[str, float]] = {}
 
 
-_SCHEMAS: dict = {}
-
-
 @pytest.fixture
-def schema(musicxml_xsd_dir):
-    """The compiled MusicXML 4.0 schema (built once per test process)."""
-    if musicxml_xsd_dir not in _SCHEMAS:
-        _SCHEMAS[musicxml_xsd_dir] = xsd_schema(musicxml_xsd_dir)
-    return _SCHEMAS[musicxml_xsd_dir]
+def schema(musicxml_schema):
+    """The official MusicXML 4.0 XSD (conftest builds it once per session)."""
+    return musicxml_schema
 
 
 def _roundtrip(name: str, tmp_path: Path, *, with_reference: bool) -> tuple[float, Notation, Path]:

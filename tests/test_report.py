@@ -1,7 +1,7 @@
 """Tests of takescribe.report: the files of a practice report and their formats.
 
 Outside references: the MusicXML 4.0 XSD (W3C Music Notation Community Group, via the
-``musicxml_xsd_dir`` fixture), music21's MusicXML reader, Python's html.parser and json,
+``musicxml_schema`` fixture), music21's MusicXML reader, Python's html.parser and json,
 libsndfile (soundfile) for the embedded audio.
 """
 
@@ -27,14 +27,6 @@ from takescribe.compare import KINDS, compare_notes  # noqa: E402
 from takescribe.errors import OutputError  # noqa: E402
 from takescribe.notes import Note  # noqa: E402
 from takescribe.report import KIND_STYLES, annotate_musicxml, write_report  # noqa: E402
-
-
-def xsd_schema(xsd_dir: Path) -> etree.XMLSchema:
-    """MusicXML 4.0 schema with its two network imports pointed at the local copies (SOURCE.md)."""
-    text = (xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
-    text = text.replace("http://www.musicxml.org/xsd/xml.xsd", (xsd_dir / "xml.xsd").as_uri())
-    text = text.replace("http://www.musicxml.org/xsd/xlink.xsd", (xsd_dir / "xlink.xsd").as_uri())
-    return etree.XMLSchema(etree.fromstring(text.encode("utf-8"), base_url=(xsd_dir / "musicxml.xsd").as_uri()))
 
 
 def _comparison_with_everything():
@@ -109,12 +101,12 @@ def test_findings_json_schema(tmp_path, everything):
     assert any(f["linked_to"] == restart["id"] for f in doc["findings"])
 
 
-def test_annotated_musicxml_validates_and_reimports(tmp_path, everything, musicxml_xsd_dir):
+def test_annotated_musicxml_validates_and_reimports(tmp_path, everything, musicxml_schema):
     ref, result = everything
     write_report(tmp_path, result, ref)
     data = (tmp_path / "annotated.musicxml").read_bytes()
     document = etree.fromstring(data)
-    schema = xsd_schema(musicxml_xsd_dir)
+    schema = musicxml_schema
     # MusicXML 4.0 XSD (W3C Music Notation Community Group): the file must be valid
     assert schema.validate(document), schema.error_log.filter_from_errors()[:5]
     # every kind with a notehead shows up with its colour and shape
@@ -131,7 +123,7 @@ def test_annotated_musicxml_validates_and_reimports(tmp_path, everything, musicx
     assert pitches == sorted(n.pitch for n in ref.notes)
 
 
-def test_annotated_musicxml_from_a_real_file(tmp_path, musicxml_xsd_dir):
+def test_annotated_musicxml_from_a_real_file(tmp_path, musicxml_schema):
     """Annotate a MusicXML file written by music21 (our own little tune) and validate it."""
     import music21
 
@@ -145,7 +137,7 @@ def test_annotated_musicxml_from_a_real_file(tmp_path, musicxml_xsd_dir):
     result = compare_notes(ref, None, played)
     assert {f.kind for f in result.findings} == {"wrong_pitch", "missed"}
     data = annotate_musicxml(result, ref)
-    assert xsd_schema(musicxml_xsd_dir).validate(etree.fromstring(data))
+    assert musicxml_schema.validate(etree.fromstring(data))
     marked = [n for n in etree.fromstring(data).iter("note") if n.get("color")]
     assert len(marked) == 2
 
@@ -203,7 +195,7 @@ def test_large_take_is_embedded_smaller(tmp_path, everything, monkeypatch):
     assert audio_sr <= 16000 and abs(len(audio) / audio_sr - 3.0) < 0.05
 
 
-def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_xsd_dir):
+def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_schema):
     """A committed piano part (two staves, chords) annotated from its deviation take."""
     from takescribe.noteio import read_notes
     from takescribe.score import load_reference
@@ -216,7 +208,7 @@ def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_xsd_dir):
     result = compare_notes(ref, None, read_notes(take))
     data = annotate_musicxml(result, ref)
     document = etree.fromstring(data)
-    schema = xsd_schema(musicxml_xsd_dir)
+    schema = musicxml_schema
     assert schema.validate(document), schema.error_log.filter_from_errors()[:5]
     # both staves are kept, and every finding on a note of the part is marked on that note
     assert len(document.findall(".//note")) >= len(ref.notes)

@@ -375,19 +375,6 @@ def test_midi_defaults_follow_the_smf_specification(tmp_path):
 # --------------------------------------------------------------------------
 # score-timewise (MusicXML 4.0 allows either document element)
 # --------------------------------------------------------------------------
-def _musicxml_schema(xsd_dir):
-    import re
-
-    import lxml.etree as LET
-
-    # offline: point the schema's two network imports at the local copies (see SOURCE.md there)
-    text = (xsd_dir / "musicxml.xsd").read_text(encoding="utf-8")
-    for name in ("xml.xsd", "xlink.xsd"):
-        text = re.sub(r'schemaLocation="[^"]*/' + re.escape(name) + '"',
-                      f'schemaLocation="{(xsd_dir / name).as_uri()}"', text)
-    return LET.XMLSchema(LET.fromstring(text.encode("utf-8"), base_url=(xsd_dir / "musicxml.xsd").as_uri()))
-
-
 def _partwise_to_timewise(data: bytes) -> bytes:
     """Regroup a score-partwise document measure by measure (test helper, checked by the XSD)."""
     import lxml.etree as LET
@@ -406,14 +393,14 @@ def _partwise_to_timewise(data: bytes) -> bytes:
     return LET.tostring(out, xml_declaration=True, encoding="UTF-8")
 
 
-def test_timewise_reads_like_partwise(our_piece_paths, tmp_path, musicxml_xsd_dir):
+def test_timewise_reads_like_partwise(our_piece_paths, tmp_path, musicxml_schema):
     import lxml.etree as LET
 
     from takescribe.score import _timewise_to_partwise
 
     xml, _ = our_piece_paths
     timewise = _partwise_to_timewise(xml.read_bytes())
-    schema = _musicxml_schema(musicxml_xsd_dir)
+    schema = musicxml_schema
     # the MusicXML 4.0 schema accepts the hand-made timewise file and our partwise rewrite of it
     assert schema.validate(LET.fromstring(timewise)), schema.error_log.last_error
     import xml.etree.ElementTree as ET
