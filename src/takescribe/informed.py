@@ -172,15 +172,11 @@ def informed_transcription(
     if alignment is None:
         alignment = align_reference(y, sr, reference)
     spectrogram = compute_spectrogram(y, sr)
-    if dictionary is None:
-        pitches = preset.pitches
-    else:
-        pitches = dictionary.pitches
-    # the part may go beyond the preset's usual range: include its pitches
+    # template pitches: the preset's (or calibrated dictionary's) range plus any piano-range
+    # pitch the part has beyond it; mask rows follow this list
     part_pitches = np.array(sorted({int(n.pitch) for n in reference.notes}), dtype=int)
-    # (templates are built below by transcribe; we need their pitch list for the mask)
-    from_preset = np.union1d(pitches, part_pitches[(part_pitches >= 21) & (part_pitches <= 108)])
-    mask_pitches = from_preset
+    base_pitches = preset.pitches if dictionary is None else dictionary.pitches
+    mask_pitches = np.union1d(base_pitches, part_pitches[(part_pitches >= 21) & (part_pitches <= 108)])
     mask = score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance, floor=floor)
     thresholds = np.where(mask >= 1.0, settings.onset_threshold * expected_factor,
                           settings.onset_threshold * unexpected_factor)
