@@ -11,8 +11,9 @@ import pytest
 # librosa compiles its kernels with numba's on-disk cache next to its own files. Test workers
 # (pytest-xdist) started together write that cache at the same time, and a torn cache file
 # later crashed a worker with a segmentation fault (seen on a fresh venv). Each test process
-# therefore gets a cache folder of its own; this must be set before numba is imported.
-os.environ.setdefault("NUMBA_CACHE_DIR", tempfile.mkdtemp(prefix="takescribe-numba-"))
+# therefore gets a cache folder of its own (set unconditionally: workers inherit the
+# controller's environment); this must happen before numba is imported.
+os.environ["NUMBA_CACHE_DIR"] = tempfile.mkdtemp(prefix="takescribe-numba-")
 
 ROOT = Path(__file__).resolve().parents[1]
 FIXTURES = ROOT / "fixtures"
