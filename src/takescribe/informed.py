@@ -57,6 +57,8 @@ def score_mask(
     tolerance: float = 0.1,
     floor: float = 0.1,
     onsets_only: bool = False,
+    repeats_only: bool = False,
+    repeat_gap: float = 0.25,
 ) -> np.ndarray:
     """Where the aligned part expects each pitch in each take frame.
 
@@ -75,6 +77,12 @@ def score_mask(
         Mask value where the part does not expect the pitch (0 forbids, 1 ignores the score).
     onsets_only : bool
         Mark only where the part *starts* the pitch (± ``tolerance``), not where it sounds.
+    repeats_only : bool
+        Mark only where the part starts the pitch *again*: a note beginning at most
+        ``repeat_gap`` seconds (score time) after the end of a note of the same pitch
+        (± ``tolerance``). Implies ``onsets_only``.
+    repeat_gap : float
+        Seconds of rest between two notes of one pitch that still count as a repeat.
 
     Returns
     -------
@@ -92,12 +100,19 @@ def score_mask(
     n_cells = int(np.ceil(end / _GRID)) + 1
     roll = np.zeros((len(pitches), n_cells), dtype=bool)
     pad = int(round(tolerance / _GRID))
-    for note in reference.notes:
+    if repeat_gap < 0:
+        raise ValueError(f"repeat_gap must be >= 0 seconds, got {repeat_gap}")
+    last_offset: dict[int, float] = {}
+    for note in sorted(reference.notes, key=lambda n: (n.onset, n.pitch)):
         k = row_of.get(int(note.pitch))
+        previous = last_offset.get(int(note.pitch))
+        last_offset[int(note.pitch)] = max(note.offset, previous if previous is not None else note.offset)
         if k is None:
             continue
+        if repeats_only and (previous is None or note.onset - previous > repeat_gap):
+            continue
         a = max(int(np.floor(note.onset / _GRID)) - pad, 0)
-        end = note.onset if onsets_only else note.offset
+        end = note.onset if onsets_only or repeats_only else note.offset
         b = min(int(np.ceil(end / _GRID)) + pad + 1, n_cells)
         roll[k, a:b] = True
     score_times = frame_times if alignment is None else np.asarray(alignment.take_to_score(frame_times), float)
@@ -185,6 +200,8 @@ def informed_transcription(
         onset_thresholds=thresholds, spectrogram=spectrogram, progress=progress, pitches=mask_pitches,
         ghost_exempt=score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance,
                                 floor=0.0, onsets_only=True) >= 1.0, settings=dataclasses.replace(settings, ghost_ratio=ghost_ratio),
+        repeat_onsets=score_mask(reference, alignment, mask_pitches, spectrogram.frame_times, tolerance=tolerance,
+                                 floor=0.0, repeats_only=True) >= 1.0,
     )
 
 

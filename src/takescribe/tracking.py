@@ -123,13 +123,69 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
     return N / scale if scale > 0 else N
 
 
+def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: float, width: int) -> list[int]:
+    """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
+
+    Returns, for each valley, the frame where the fall into it is half-way down.
+
+    A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
+    the highest activation within ``width`` frames before it *and* within ``width`` frames
+    after it, and the swell after it rises by at least ``rise``. Of valleys closer than
+    ``width`` frames only the deepest is kept.
+    """
+    n = len(seg)
+    if n < 3 or width < 1 or not zone[1:-1].any():
+        return []
+    padded = np.concatenate([np.full(width, -np.inf), seg, np.full(width, -np.inf)])
+    windows = np.lib.stride_tricks.sliding_window_view(padded, width)
+    before = windows[:n].max(axis=1)            # seg[i - width: i]
+    after = windows[width + 1: width + 1 + n].max(axis=1)  # seg[i + 1: i + 1 + width]
+    minimum = np.zeros(n, dtype=bool)
+    minimum[1:-1] = (seg[1:-1] < seg[:-2]) & (seg[1:-1] <= seg[2:])
+    ok = minimum & zone & (seg <= dip * before) & (seg <= dip * after) & (after - seg >= rise)
+    valleys: list[int] = []
+    for c in np.nonzero(ok)[0]:
+        if valleys and c - valleys[-1] < width:
+            if seg[c] < seg[valleys[-1]]:
+                valleys[-1] = int(c)
+            continue
+        valleys.append(int(c))
+    # the new note starts during the fall into the valley (the old stroke fades while the
+    # new one builds up): place it where the fall is half-way down from the swell before
+    starts = []
+    for c in valleys:
+        half = 0.5 * (seg[c] + before[c])
+        high = np.nonzero(seg[max(c - width, 0): c] > half)[0]
+        starts.append(max(c - width, 0) + int(high[-1]) + 1 if len(high) else c)
+    return starts
+
+
 def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
                   novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
-                  relaxed: np.ndarray | None = None) -> list[int]:
-    """Onset frames inside region [start, stop) of one pitch's activation ``a``."""
-    onsets = [start]
+                  relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
+                  repeat_frames: int = 0) -> tuple[list[int], set[int]]:
+    """Onset frames inside region [start, stop) of one pitch's activation ``a``.
+
+    Also returns the onsets found at repeat valleys: their time is already placed.
+    """
     if stop - start <= 2 * frames:
-        return onsets
+        return [start], set()
+    onsets = _rise_onsets(a, start, stop, rise, frames, dip, novelty, novelty_threshold, relaxed)
+    if repeats is None or repeat_frames < 1:
+        return onsets, set()
+    # where the part repeats this pitch, a swell-valley-swell is a new bow stroke or breath
+    # even when the rise after it is too slow for the rise test above
+    extra = [start + v for v in _repeat_valleys(a[start:stop], repeats[start:stop], rise[start:stop], dip,
+                                                repeat_frames)]
+    extra = [v for v in extra if v - start >= 2 * frames
+             and not any(-frames <= o - v <= repeat_frames for o in onsets)]
+    return sorted(onsets + extra), set(extra)
+
+
+def _rise_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
+                 novelty: np.ndarray | None, novelty_threshold: float, relaxed: np.ndarray | None) -> list[int]:
+    """Region start and the rise-after-dip (and novelty) re-onsets inside it."""
+    onsets = [start]
     seg = a[start:stop]
     # minimum over the previous `frames` frames (edge-padded at the region start)
     padded = np.concatenate([np.full(frames, seg[0]), seg])
@@ -184,6 +240,8 @@ def activations_to_notes(
     novelty_threshold: float = 0.5,
     novelty_snap: float = 0.1,
     expected_onsets: np.ndarray | None = None,
+    expected_repeats: np.ndarray | None = None,
+    repeat_window: float = 0.25,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -231,6 +289,17 @@ def activations_to_notes(
         Where a note of the pitch is expected to start (score-informed mode): there a new
         onset inside a sounding region needs only half the rise over a shallower dip, so
         repeated chords of a part are split where they are written.
+    expected_repeats : np.ndarray of bool (n_pitches, n_frames), optional
+        Where the part starts a pitch again right after a note of the same pitch
+        (score-informed mode; see :func:`takescribe.informed.score_mask`, ``repeats_only``).
+        There a valley of the activation between two swells also starts a new note: at
+        most ``reonset_dip`` times the highest activation within ``repeat_window`` seconds
+        before it and after it, followed by a rise of at least ``reonset_rise``. A bow
+        change or a breath between two legato notes of one pitch leaves such a valley but
+        rises too slowly for the rise test; a note held through the written repeat leaves
+        none, so it stays one note (the score is a prior, not a cage).
+    repeat_window : float
+        Seconds on each side of a valley searched for the swells around it.
     attack_fraction : float
         The onset is placed where the activation, rising to the note's peak, crosses
         this fraction of the peak.
@@ -267,6 +336,9 @@ def activations_to_notes(
     rise = np.full(T, reonset_rise)
     end_time = frame_times[-1] + hop
     lookback = max(int(round(0.1 / hop)), 1)
+    repeat_frames = max(int(round(repeat_window / hop)), 1)
+    if expected_repeats is not None and np.shape(expected_repeats) != H.shape:
+        raise InputError(f"expected_repeats must have the shape of H {H.shape}, got {np.shape(expected_repeats)}")
     notes: list[Note] = []
     for k in range(K):
         a = Hsel[k]
@@ -278,9 +350,10 @@ def activations_to_notes(
         previous_end = 0
         for sl in scipy.ndimage.find_objects(labels):
             start, stop = sl[0].start, sl[0].stop
-            onsets = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
+            onsets, placed = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
                                    None if novelty is None else novelty[k], novelty_threshold,
-                                   None if expected_onsets is None else expected_onsets[k])
+                                   None if expected_onsets is None else expected_onsets[k],
+                                   None if expected_repeats is None else expected_repeats[k], repeat_frames)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
@@ -298,6 +371,8 @@ def activations_to_notes(
                 below = np.nonzero(rising < attack_fraction * peak)[0]
                 onset_frame = first + (int(below[-1]) + 1 if len(below) else 0)
                 onset_frame = max(min(onset_frame, on), first) if i == 0 and not len(below) else onset_frame
+                if on in placed:
+                    onset_frame = on  # a repeat valley: the onset is where the old stroke fades
                 if novelty is not None:
                     # snap to the strongest attack of this pitch shortly before or at the rise
                     lo = max(onset_frame - lookback, first)

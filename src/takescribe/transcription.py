@@ -48,6 +48,9 @@ class TranscriptionSettings:
         Seconds.
     onset_shift : float
         Seconds added to note times to compensate the analysis delay.
+    repeat_window : float
+        Seconds searched on each side of an activation valley where the part repeats a
+        pitch (score-informed; :func:`takescribe.tracking.activations_to_notes`).
     """
 
     beta: float = 1.0
@@ -74,6 +77,7 @@ class TranscriptionSettings:
     novelty_threshold: float = 0.5
     novelty_snap: float = 0.1
     ghost_ratio: float = 0.0
+    repeat_window: float = 0.25
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
@@ -158,6 +162,7 @@ def transcribe(
     progress: Callable[[str], None] | None = None,
     pitches: np.ndarray | None = None,
     ghost_exempt: np.ndarray | None = None,
+    repeat_onsets: np.ndarray | None = None,
 ) -> Transcription:
     """Transcribe a mono signal into note events (blind, or guided by a mask on H).
 
@@ -189,6 +194,10 @@ def transcribe(
         Where the part starts each pitch (score-informed): a note starting there is never
         dropped as a harmonic ghost, and a re-onset there needs less evidence. Rows follow
         ``pitches`` like ``mask``.
+    repeat_onsets : np.ndarray of bool (n_pitches, n_frames), optional
+        Where the part starts a pitch again right after a note of that pitch
+        (score-informed): an activation valley there starts a new note (a bow change
+        or breath between repeated legato notes). Rows follow ``pitches`` like ``mask``.
 
     Returns
     -------
@@ -217,6 +226,8 @@ def transcribe(
             onset_thresholds = onset_thresholds[rows]
         if ghost_exempt is not None:
             ghost_exempt = ghost_exempt[rows]
+        if repeat_onsets is not None:
+            repeat_onsets = repeat_onsets[rows]
     V, _ = normalize_spectrogram(spectrogram.V)
     empty = np.zeros((initial.n_pitches, spectrogram.n_frames), np.float32)
     if not np.any(V):
@@ -267,6 +278,10 @@ def transcribe(
         # relaxed re-onsets serve repeated chords of struck instruments; on bowed and blown
         # notes a slow attack would look like several onsets
         expected_onsets=ghost_exempt if preset.polyphonic else None,
+        # and conversely: a struck note decays, so a valley before a repeated strike is no
+        # second onset, while a bowed or blown repeat may rise too slowly for the rise test
+        expected_repeats=None if preset.polyphonic else repeat_onsets,
+        repeat_window=settings.repeat_window,
     )
     exempt = None
     if ghost_exempt is not None:
