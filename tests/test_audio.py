@@ -22,6 +22,7 @@ import soundfile as sf
 
 from takescribe import audio
 from takescribe.audio import (
+    release_samples,
     AudioInfo,
     TakescribeWarning,
     audio_info,
@@ -164,6 +165,41 @@ def test_long_file_holds_one_analysis_rate_copy(tmp_path):
     # one result + one block (65536 frames x 2 channels float32 and a few temporaries of it)
     block_bytes = 65536 * 2 * 4
     assert peak < y.nbytes + 8 * block_bytes, (peak, y.nbytes)
+
+
+@pytest.mark.parametrize("offset", [0.0, 0.2])
+def test_spilled_take_equals_the_in_memory_one(tmp_path, offset):
+    # A take longer than spill_seconds lives in a temporary file: same samples as the in-memory
+    # read (and librosa.load, the reference library), DC offset removed the same way, read-only.
+    path = write(tmp_path / "take.wav", np.stack([chord(44100, 2.5) + offset] * 2, 1), 44100, subtype="FLOAT")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TakescribeWarning)
+        held, _ = load_audio(path, sr=22050)
+        spilled, _ = load_audio(path, sr=22050, spill_seconds=1.0, block_frames=4096)
+        short, _ = load_audio(path, sr=22050, spill_seconds=10.0)
+    ref, _ = librosa.load(path, sr=22050, mono=True)  # reference library
+    assert spilled.dtype == np.float32 and not spilled.flags.writeable
+    assert short.flags.writeable  # shorter than spill_seconds: an ordinary array
+    np.testing.assert_array_equal(spilled, held)
+    np.testing.assert_allclose(spilled, ref - (np.mean(ref, dtype=np.float64) if offset else 0.0), atol=1e-5)
+
+
+def test_released_samples_read_back_unchanged(tmp_path):
+    path = write(tmp_path / "take.wav", chord(22050, 3.0), 22050, subtype="PCM_16")
+    held, _ = load_audio(path)
+    spilled, _ = load_audio(path, spill_seconds=0.5)
+    for start, stop in [(0, 5000), (1234, 40000), (0, None), (60000, 10)]:
+        release_samples(spilled, start, stop)
+        np.testing.assert_array_equal(spilled, held)
+    release_samples(spilled[100:], 0, 30000)  # a view of the mapped take
+    np.testing.assert_array_equal(spilled, held)
+    release_samples(held, 0, None)  # an in-memory array: nothing happens
+    np.testing.assert_array_equal(held, load_audio(path)[0])
+
+
+def test_spill_seconds_must_be_a_duration(clean_wav):
+    with pytest.raises(InputError, match="spill_seconds"):
+        load_audio(clean_wav, spill_seconds=-1)
 
 
 def test_audio_info_matches_soundfile(tmp_path):

@@ -51,6 +51,27 @@ def test_blocks_equal_one_pass(name, program, seconds):
     assert len({(n.pitch, round(n.onset, 4)) for n in blocked.notes}) == len(blocked.notes)
 
 
+def test_a_take_spilled_to_a_file_gives_the_same_notes(tmp_path):
+    # load_take keeps a long take in a temporary file and the blocks release its pages as they
+    # go: the notes must be those of the same take held in memory.
+    import soundfile as sf
+
+    from takescribe.pipeline import load_take
+
+    y = _long_take("piano_alberti", 170.0)
+    path = tmp_path / "long.wav"
+    sf.write(path, y, ANALYSIS_SR, subtype="FLOAT")
+    spilled, sr = load_take(path)
+    assert not spilled.flags.writeable  # longer than LONG_TAKE_SECONDS: mapped from a file
+    held, _ = load_audio(path, sr=ANALYSIS_SR)
+    quick = settings_for(0).__class__(**{**settings_for(0).__dict__, "n_iter": 12, "adapt_iter": 4})
+    a = transcribe_long(spilled, sr, instrument=0, settings=quick)
+    b = transcribe_long(held, sr, instrument=0, settings=quick)
+    assert len(a.notes) > 0
+    assert a.notes == b.notes
+    np.testing.assert_array_equal(spilled, held)
+
+
 @given(n_frames=st.integers(1, 5000), core=st.integers(1, 800), context=st.integers(0, 300))
 @hsettings(max_examples=200, deadline=None)
 def test_layout_tiles_the_take(n_frames, core, context):

@@ -5,6 +5,14 @@ blocks, mixes each block to mono, resamples it with a streaming soxr resampler a
 writes it into one preallocated output array, so a long take never holds more than
 one copy of the analysis-rate signal (plus one block of the original).
 
+Long takes can be kept out of memory altogether: with ``spill_seconds``, a take
+longer than that is written block by block to an anonymous temporary file and
+returned as a read-only array mapped onto it. Code that walks such a take in
+blocks calls :func:`release_samples` on the part it is done with, so the pages
+leave the process's resident memory again (the operating system keeps them in its
+file cache and reads them back if they are touched later); memory then stays flat
+however long the take is. The file disappears when the array is garbage-collected.
+
 Conventions
 -----------
 - ``y`` is a 1-D float32 array in the range of the file (full scale = 1.0), ``sr``
@@ -35,9 +43,11 @@ from __future__ import annotations
 
 import contextlib
 import math
+import mmap
 import os
 import struct
 import sys
+import tempfile
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -53,6 +63,7 @@ __all__ = [
     "AudioInfo",
     "audio_info",
     "load_audio",
+    "release_samples",
     "max_resolvable_pitch",
     "validate_audio",
     "MIN_DURATION",
@@ -208,7 +219,11 @@ def validate_audio(y: np.ndarray, sr: int, *, name: str = "y") -> None:
                          "mix channels first (mean over the channel axis)")
     if y.size < MIN_DURATION * sr:
         raise AudioError(f"{name} lasts {y.size / sr:.3f} s; takescribe needs at least {MIN_DURATION} s of audio")
-    n_bad = int(y.size - np.count_nonzero(np.isfinite(y)))
+    n_bad = 0
+    step = 1 << 20  # in blocks: a take spilled to a file stays out of memory (see release_samples)
+    for first in range(0, y.size, step):
+        n_bad += int(min(step, y.size - first) - np.count_nonzero(np.isfinite(y[first:first + step])))
+        release_samples(y, first, first + step)
     if n_bad:
         raise AudioError(f"{name} holds {n_bad} NaN or infinite samples; clean or re-export the signal")
 
@@ -242,6 +257,7 @@ def load_audio(
     sr: int = 22050,
     max_seconds: float | None = None,
     block_frames: int = 65536,
+    spill_seconds: float | None = None,
 ) -> tuple[np.ndarray, int]:
     """Read an audio file as a mono float32 signal at sample rate ``sr``.
 
@@ -256,11 +272,16 @@ def load_audio(
         Read at most this many seconds from the start of the file (None: all of it).
     block_frames : int
         Frames read per block; memory use is one block of the original plus the result.
+    spill_seconds : float or None
+        Takes longer than this (seconds, after ``max_seconds``) are written to an
+        anonymous temporary file and returned as a read-only array mapped onto it
+        (see the module docstring and :func:`release_samples`). None: always in memory.
 
     Returns
     -------
     y : np.ndarray (n_samples,), float32
         The mono signal; its mean is removed when it exceeds :data:`DC_OFFSET_LIMIT`.
+        Read-only when spilled to a file.
     sr : int
         Sample rate of ``y`` in Hz (the ``sr`` argument).
 
@@ -295,6 +316,9 @@ def load_audio(
             raise InputError(f"max_seconds must be at least {MIN_DURATION} s, got {max_seconds}")
     if isinstance(block_frames, bool) or not isinstance(block_frames, (int, np.integer)) or block_frames < 1:
         raise InputError(f"block_frames must be a positive integer, got {block_frames!r}")
+    if spill_seconds is not None and not (isinstance(spill_seconds, (int, float, np.integer, np.floating))
+                                          and not isinstance(spill_seconds, bool) and spill_seconds >= 0):
+        raise InputError(f"spill_seconds must be a number of seconds >= 0 or None, got {spill_seconds!r}")
 
     path = _check_path(path)
     with _open(path) as handle:
@@ -303,8 +327,19 @@ def load_audio(
         n_wanted = info.n_frames
         if max_seconds is not None:
             n_wanted = min(n_wanted, math.ceil(max_seconds * native_sr))
-        y, stats = _read_resampled(path, handle, info, n_wanted=n_wanted, sr=sr, block_frames=int(block_frames))
+        spill = spill_seconds is not None and n_wanted / native_sr > spill_seconds
+        y, stats = _read_resampled(path, handle, info, n_wanted=n_wanted, sr=sr, block_frames=int(block_frames),
+                                   spill=spill)
+    try:
+        return _checked(path, y, info, stats, n_wanted=n_wanted, sr=sr)
+    finally:
+        if isinstance(y, _FileSink) and not y.file.closed:
+            y.file.close()
 
+
+def _checked(path: Path, y, info: AudioInfo, stats, *, n_wanted: int, sr: int) -> tuple[np.ndarray, int]:
+    """Refuse damaged content, warn about usable problems, remove a DC offset."""
+    native_sr = info.sr
     if stats.n_read < n_wanted:
         raise AudioError(
             f"{path}: damaged or truncated {info.format} file: the header announces {n_wanted / native_sr:.2f} s "
@@ -315,8 +350,40 @@ def load_audio(
             f"{path}: {stats.n_nonfinite} samples are NaN or infinite (damaged floating-point audio); "
             "re-export the take as 16- or 24-bit PCM WAV or FLAC"
         )
-    _warn_about_content(path, y, info, stats, sr=sr)
+    offset = _warn_about_content(path, info, stats, sr=sr)
+    if isinstance(y, _FileSink):
+        return y.finish(offset), sr
+    if offset:
+        y -= np.float32(offset)
     return y, sr
+
+
+def release_samples(y: np.ndarray, start: int = 0, stop: int | None = None) -> None:
+    """Let samples ``[start, stop)`` of a take spilled to a file leave resident memory.
+
+    A no-op for an ordinary in-memory array. For a take returned by
+    :func:`load_audio` with ``spill_seconds``, the whole memory pages inside the
+    range are dropped from the process (``madvise(MADV_DONTNEED)``); the data stay
+    in the file and are read back transparently if touched again.
+    """
+    base = y
+    while base is not None and not isinstance(base, mmap.mmap):
+        base = base.obj if isinstance(base, memoryview) else getattr(base, "base", None)
+    if base is None or not hasattr(mmap, "MADV_DONTNEED") or y.ndim != 1 or base.closed:
+        return
+    n = y.shape[0]
+    stop = n if stop is None else min(stop, n)
+    start = max(start, 0)
+    if stop <= start:
+        return
+    origin = np.frombuffer(base, dtype=np.uint8, count=0).__array_interface__["data"][0]
+    first = y.__array_interface__["data"][0] - origin + start * y.strides[0]
+    last = first + (stop - start) * y.strides[0]
+    page = mmap.PAGESIZE
+    first = -(-first // page) * page  # whole pages only: neighbours may still be in use
+    last = last // page * page
+    if last > first:
+        base.madvise(mmap.MADV_DONTNEED, first, last - first)
 
 
 # ---------------------------------------------------------------------------
@@ -569,11 +636,58 @@ class _ReadStats:
     n_clipped: int
     n_samples: int
     peak: float
+    mean: float = 0.0
+
+
+class _FileSink:
+    """Output of :func:`_read_resampled` written to an anonymous temporary file."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        try:
+            self.file = tempfile.TemporaryFile(prefix="takescribe-take-")
+        except OSError as exc:
+            raise AudioError(f"{path}: cannot create a temporary file for the long take ({exc.strerror or exc}); "
+                             "free some space in the temporary folder (TMPDIR)") from exc
+        self.size = 0
+
+    def append(self, chunk: np.ndarray) -> None:
+        try:
+            self.file.write(np.ascontiguousarray(chunk, dtype=np.float32).tobytes())
+        except OSError as exc:
+            self.file.close()
+            raise AudioError(f"{self.path}: cannot write the long take to a temporary file "
+                             f"({exc.strerror or exc}); free some space in the temporary folder (TMPDIR)") from exc
+        self.size += chunk.size
+
+    def truncate(self, n: int) -> None:
+        self.file.truncate(4 * n)
+        self.file.seek(4 * n)
+        self.size = n
+
+    def finish(self, offset: float) -> np.ndarray:
+        """Remove ``offset`` (the DC offset, 0 for none) and map the file read-only."""
+        with self.file:
+            self.file.flush()
+            if offset:
+                step = 1 << 20
+                for first in range(0, self.size, step):
+                    self.file.seek(4 * first)
+                    block = np.fromfile(self.file, dtype=np.float32, count=min(step, self.size - first))
+                    block -= np.float32(offset)
+                    self.file.seek(4 * first)
+                    self.file.write(block.tobytes())
+                self.file.flush()
+            if self.size == 0:
+                return np.zeros(0, dtype=np.float32)
+            mapped = mmap.mmap(self.file.fileno(), 4 * self.size, access=mmap.ACCESS_READ)
+        return np.frombuffer(mapped, dtype=np.float32)
 
 
 def _read_resampled(
-    path: Path, handle: sf.SoundFile, info: AudioInfo, *, n_wanted: int, sr: int, block_frames: int
-) -> tuple[np.ndarray, _ReadStats]:
+    path: Path, handle: sf.SoundFile, info: AudioInfo, *, n_wanted: int, sr: int, block_frames: int,
+    spill: bool = False,
+) -> tuple["np.ndarray | _FileSink", _ReadStats]:
     native_sr = info.sr
     n_channels = info.n_channels
     frames_per_block = max(1, min(block_frames, _MAX_BLOCK_SAMPLES // n_channels))
@@ -581,17 +695,24 @@ def _read_resampled(
     clip_level = _CLIP_LEVEL * _FULL_SCALE.get(info.subtype, 1.0)
     stream = None if native_sr == sr else soxr.ResampleStream(native_sr, sr, 1, dtype="float32", quality="HQ")
 
+    sink = _FileSink(path) if spill else None
     try:
-        y = np.empty(min(n_out, _MAX_PREALLOCATED), dtype=np.float32)
+        y = np.empty(0 if spill else min(n_out, _MAX_PREALLOCATED), dtype=np.float32)
     except MemoryError as exc:
         raise AudioError(f"{path}: too long to hold in memory ({info.duration:.0f} s); "
                          "pass a shorter max_seconds or split the take") from exc
     filled = 0
     n_read = n_nonfinite = n_clipped = 0
     peak = 0.0
+    total = 0.0
 
     def append(chunk: np.ndarray) -> None:
-        nonlocal y, filled
+        nonlocal y, filled, total
+        total += float(np.sum(chunk, dtype=np.float64))
+        if sink is not None:
+            sink.append(chunk)
+            filled += chunk.size
+            return
         if filled + chunk.size > y.size:
             try:
                 y.resize(max(filled + chunk.size, min(2 * y.size, n_out)), refcheck=False)
@@ -622,8 +743,12 @@ def _read_resampled(
             if stream is not None:
                 append(stream.resample_chunk(np.zeros(0, dtype=np.float32), last=True))
     except AudioError:
+        if sink is not None:
+            sink.file.close()
         raise
     except (sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
+        if sink is not None:
+            sink.file.close()
         detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
         raise AudioError(
             f"{path}: damaged or truncated {info.format} file (decoding failed: {detail}); "
@@ -634,13 +759,18 @@ def _read_resampled(
     n_final = math.ceil(n_read * sr / native_sr)
     if filled < n_final:
         append(np.zeros(n_final - filled, dtype=np.float32))
-    if y.size != n_final:
+    if sink is not None:
+        if sink.size != n_final:
+            sink.truncate(n_final)
+    elif y.size != n_final:
         y.resize(n_final, refcheck=False)
-    return y, _ReadStats(n_read=n_read, n_nonfinite=n_nonfinite, n_clipped=n_clipped,
-                         n_samples=n_read * n_channels, peak=peak)
+    stats = _ReadStats(n_read=n_read, n_nonfinite=n_nonfinite, n_clipped=n_clipped,
+                       n_samples=n_read * n_channels, peak=peak, mean=total / max(filled, 1))
+    return (y if sink is None else sink), stats
 
 
-def _warn_about_content(path: Path, y: np.ndarray, info: AudioInfo, stats: _ReadStats, *, sr: int) -> None:
+def _warn_about_content(path: Path, info: AudioInfo, stats: _ReadStats, *, sr: int) -> float:
+    """Warn about problems that leave a usable signal; return the DC offset to remove (0.0: none)."""
     effective_sr = min(info.sr, sr)
     if effective_sr < 2 * _TOP_PIANO_HZ:
         which = f"the file's sample rate {info.sr} Hz" if info.sr <= sr else f"the analysis rate sr={sr} Hz"
@@ -654,19 +784,20 @@ def _warn_about_content(path: Path, y: np.ndarray, info: AudioInfo, stats: _Read
             f"{path}: the take is silent (peak below {SILENCE_PEAK_DBFS:.0f} dBFS); the draft will be empty, "
             "check the input level or the microphone"
         )
-        return
+        return 0.0
     if stats.n_samples and stats.n_clipped > CLIPPING_FRACTION * stats.n_samples:
         _warn(
             f"{path}: heavy clipping: {100.0 * stats.n_clipped / stats.n_samples:.1f} % of samples are at full "
             "scale; notes may be misread, record again with lower input gain"
         )
-    offset = float(np.mean(y, dtype=np.float64)) if y.size else 0.0
+    offset = stats.mean
     if abs(offset) > DC_OFFSET_LIMIT:
-        y -= np.float32(offset)
         _warn(
             f"{path}: DC offset of {offset:+.3f} (mean of the signal) removed; "
             "check the recording chain (interface or microphone preamp) if this recurs"
         )
+        return offset
+    return 0.0
 
 
 def _warn(message: str) -> None:

@@ -31,6 +31,9 @@ edge; a note sounding more than one block beyond its start is cut there.
 
 Conventions
 -----------
+- ``y`` may be a take that :func:`takescribe.audio.load_audio` spilled to a file
+  (``spill_seconds``): each block's samples are released from memory once its
+  spectrogram is computed, so nothing here grows with the length of the take.
 - Times in seconds from the start of the take; frames on the global grid
   (``HOP_LENGTH`` samples): block edges are whole frames, so a block's frame ``j``
   is the take's frame ``start + j``.
@@ -51,6 +54,7 @@ from typing import Callable
 
 import numpy as np
 
+from .audio import release_samples
 from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
 from .errors import InputError
 from .informed import INFORMED_DEFAULTS, score_mask
@@ -184,6 +188,7 @@ def transcribe_long(
     timings["n_blocks"] = len(layout)
     t0 = time.perf_counter()
     tuning = estimate_tuning(y, sr)
+    release_samples(y, 0, 60 * sr)
     timings["spectrogram"] += time.perf_counter() - t0
 
     if reference is not None and alignment is None:
@@ -220,6 +225,7 @@ def transcribe_long(
         for b, (start, core_start, core_stop, stop) in enumerate(layout):
             t0 = time.perf_counter()
             spec, V = _block_spectrogram(y, sr, start, stop, tuning, hop)
+            release_samples(y, start * hop, stop * hop)  # a take spilled to a file leaves memory again
             timings["spectrogram"] += time.perf_counter() - t0
             if initial is None:
                 if dictionary is None:

@@ -86,10 +86,14 @@ def _check_not_input(outputs, inputs) -> None:
 
 
 def load_take(path, *, progress: Callable[[str], None] | None = None) -> tuple[np.ndarray, int]:
-    """Read a take at the analysis rate (see :func:`takescribe.audio.load_audio`)."""
+    """Read a take at the analysis rate (see :func:`takescribe.audio.load_audio`).
+
+    A take long enough to go block by block (:data:`takescribe.blocks.LONG_TAKE_SECONDS`)
+    is spilled to a temporary file and mapped read-only, so memory does not grow with it.
+    """
     if progress:
         progress(f"reading {Path(path).name}")
-    return load_audio(path, sr=ANALYSIS_SR)
+    return load_audio(path, sr=ANALYSIS_SR, spill_seconds=LONG_TAKE_SECONDS)
 
 
 def transcribe_take(
