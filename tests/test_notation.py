@@ -27,6 +27,7 @@ from takescribe.notation import (
     assign_voices,
     estimate_meter,
     notate,
+    onset_envelope,
     parse_time_signature,
     quantize,
     spell_pitch,
@@ -671,3 +672,23 @@ def test_no_notes_warns_and_still_writes(tmp_path, schema):
         notation = notate([], instrument_name="Cello", midi_program=42)
     path = write_musicxml(notation, tmp_path / "empty.musicxml")
     validate_xml(path, schema)
+
+
+@pytest.mark.parametrize("block_frames", [57, 400])
+def test_blockwise_onset_envelope_equals_librosa(block_frames):
+    # Reference library: librosa.onset.onset_strength with its defaults. A take with a silent
+    # start and a quiet stretch exercises the 80 dB floor, which depends on the whole take's
+    # loudest bin (the reason for two passes).
+    import librosa
+
+    sr = 22050
+    t = np.arange(int(4.0 * sr)) / sr
+    y = np.zeros_like(t)
+    for k, start in enumerate(np.arange(0.5, 3.5, 0.25)):
+        on = (t >= start) & (t < start + 0.2)
+        y[on] += (0.4 if k % 3 else 1e-5) * np.sin(2 * np.pi * 220 * 2 ** (k / 12) * t[on])
+    y = y.astype(np.float32)
+    expected = librosa.onset.onset_strength(y=y, sr=sr, hop_length=512)
+    got = onset_envelope(y, sr, hop_length=512, block_frames=block_frames)
+    assert got.shape == expected.shape
+    np.testing.assert_allclose(got, expected, rtol=1e-5, atol=1e-5 * float(expected.max()))

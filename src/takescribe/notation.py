@@ -79,6 +79,7 @@ __all__ = [
     "LAMBDA",
     "GRID_NAMES",
     "estimate_meter",
+    "onset_envelope",
     "grid_from_reference",
     "quantize",
     "estimate_key",
@@ -677,6 +678,55 @@ def _is_compound(notes: Sequence[Note], beats: np.ndarray) -> bool:
     return bool(thirds >= 4 and thirds > 2 * halves and period > 0.35)
 
 
+def onset_envelope(y: np.ndarray, sr: int, *, hop_length: int = 512, n_fft: int = 2048,
+                   block_frames: int = 8192) -> np.ndarray:
+    """``librosa.onset.onset_strength`` with its defaults, computed in blocks of frames.
+
+    Equal to the librosa call (mel power spectrogram, dB with an 80 dB floor below the
+    take's loudest bin, positive flux against the previous frame, mean over mel bands),
+    but memory stays bounded by one block: a two-hour take would need gigabytes for
+    librosa's whole spectrogram. Takes of up to ``block_frames`` frames go straight to
+    librosa; longer ones take two passes (the loudest bin, then the flux). Samples are
+    released as they are used (a take spilled to a file, see :func:`takescribe.audio.release_samples`).
+    """
+    import librosa
+
+    from .audio import release_samples
+
+    n_frames = 1 + len(y) // hop_length
+    if n_frames <= block_frames:
+        return librosa.onset.onset_strength(y=np.asarray(y, dtype=np.float32), sr=sr, hop_length=hop_length,
+                                            n_fft=n_fft)
+    half = n_fft // 2
+
+    def mel_power(a: int, b: int) -> np.ndarray:
+        """Mel power of centred frames [a, b) (zeros beyond the take, as librosa pads)."""
+        first = a * hop_length - half
+        segment = np.zeros((b - a - 1) * hop_length + n_fft, dtype=np.float32)
+        lo, hi = max(first, 0), min(first + len(segment), len(y))
+        if hi > lo:
+            segment[lo - first: hi - first] = y[lo:hi]
+        release_samples(y, 0, lo)
+        return librosa.feature.melspectrogram(y=segment, sr=sr, n_fft=n_fft, hop_length=hop_length, center=False)
+
+    edges = list(range(0, n_frames, block_frames)) + [n_frames]
+    top = max(float(mel_power(a, b).max()) for a, b in zip(edges[:-1], edges[1:]))
+    floor_db = 10.0 * np.log10(max(top, 1e-10)) - 80.0  # power_to_db(ref=1.0, amin=1e-10, top_db=80)
+    flux = np.zeros(n_frames, dtype=np.float32)
+    previous = None
+    for a, b in zip(edges[:-1], edges[1:]):
+        S = np.maximum(librosa.power_to_db(mel_power(a, b), top_db=None), np.float32(floor_db))
+        first = a + 1  # flux of frame a needs frame a - 1: the previous block's last column
+        if previous is not None:
+            S, first = np.hstack([previous, S]), a
+        flux[first:b] = np.mean(np.maximum(0.0, S[:, 1:] - S[:, :-1]), axis=0)
+        previous = S[:, -1:]
+    release_samples(y)
+    # librosa's framing: lag 1 and half a window of zeros before the first flux value
+    pad = 1 + n_fft // (2 * hop_length)
+    return np.pad(flux[1:], (pad, 0))[:n_frames]
+
+
 def estimate_meter(
     y: np.ndarray | None,
     sr: int | None,
@@ -750,8 +800,7 @@ def estimate_meter(
     if y is not None:
         if sr is None or sr <= 0:
             raise InputError(f"sample rate must be a positive number of Hz when audio is given, got {sr!r}")
-        y = np.asarray(y, dtype=np.float32)
-        env = librosa.onset.onset_strength(y=y, sr=sr, hop_length=hop_length)
+        env = onset_envelope(y, sr, hop_length=hop_length)
         env_sr = sr
         duration = len(y) / sr
     else:
