@@ -214,3 +214,13 @@ def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_schema):
     assert len(document.findall(".//note")) >= len(ref.notes)
     marked = {f.reference_index for f in result.findings if f.reference_index is not None and f.kind != "restart"}
     assert len([n for n in document.iter("note") if n.get("color")]) == len(marked) > 0
+
+
+@pytest.mark.parametrize("beat, shown", [(1.0, "1"), (3.5, "3½"), (2.25, "2¼"), (4.75, "4¾"), (1 + 1 / 3, "1⅓"),
+                                         (2.98, "3"), (3.41, "3.4"), (None, "")])
+def test_beats_are_shown_as_musicians_count_them(beat, shown):
+    # Common practice, no source: positions inside a beat are read as halves, quarters and
+    # thirds (triplets) of it; anything else is shown to one decimal.
+    from takescribe.report import _format_beat
+
+    assert _format_beat(beat) == shown

@@ -209,6 +209,7 @@ th{background:#f0f0f0} td.num{text-align:right;font-variant-numeric:tabular-nums
 .linked td{color:#555} .linked td:first-child{padding-left:1.2rem}
 audio{width:100%;margin:.5rem 0}
 @media print{.row{break-inside:avoid}}
+@media (max-width:40rem){.row{overflow-x:auto} .row svg{width:56rem;max-width:none}}
 """
 
 
@@ -495,6 +496,22 @@ def _format_deviation(kind: str, value: float | None) -> str:
     return f"{value:+.2f} s"
 
 
+_FRACTIONS = ((0.0, ""), (0.25, "\u00bc"), (1 / 3, "\u2153"), (0.5, "\u00bd"), (2 / 3, "\u2154"), (0.75, "\u00be"),
+              (1.0, ""))
+
+
+def _format_beat(beat: float | None) -> str:
+    """A beat as a teacher reads it: "3", "3½" (halfway through beat 3), "2¼"; else one decimal."""
+    if beat is None:
+        return ""
+    whole = int(np.floor(beat + 1e-9))
+    part = beat - whole
+    fraction, mark = min(_FRACTIONS, key=lambda item: abs(item[0] - part))
+    if abs(fraction - part) > 0.04:
+        return f"{beat:.1f}"
+    return f"{whole + int(fraction == 1.0)}{mark}"
+
+
 def _findings_table(comparison: Comparison) -> str:
     if not comparison.findings:
         return "<p>Nothing to point out: every note of the part was heard in time.</p>"
@@ -509,7 +526,7 @@ def _findings_table(comparison: Comparison) -> str:
             f"<tr{cls}><td class=\"num\">{f.id}</td>"
             f'<td><svg width="14" height="14" aria-hidden="true">{_marker(f.kind, 7, 7, 4.5)}</svg> {esc(st.label)}</td>'
             f"<td>{esc(str(f.measure_label or f.measure or ''))}</td>"
-            f"<td class=\"num\">{'' if f.beat is None else f'{f.beat:g}'}</td>"
+            f"<td class=\"num\">{_format_beat(f.beat)}</td>"
             f"<td class=\"num\">{_format_time(f.time)}</td>"
             f"<td>{'' if f.expected_pitch is None else pitch_name(f.expected_pitch)}</td>"
             f"<td>{'' if f.played_pitch is None else pitch_name(f.played_pitch)}</td>"
