@@ -248,12 +248,21 @@ def _warm_up() -> None:
 
     The first spectrogram of a process imports and compiles much of librosa (about
     10 s of a cold start, measured on the 2-core test machine); forked workers then
-    inherit it instead of paying it each.
+    inherit it instead of paying it each. The numba functions librosa compiles and
+    caches on disk (Viterbi decoding, the beat tracker) are compiled here too: several
+    processes compiling them at once can tear librosa's shared on-disk cache (seen as
+    a segfault in a worker), so they must be compiled by one process at a time.
     """
+    import librosa
+
     from .spectrogram import compute_spectrogram
 
     noise = np.random.default_rng(0).standard_normal(22050).astype(np.float32)
     compute_spectrogram(0.1 * noise, 22050)
+    envelope = np.abs(noise[::256])
+    librosa.beat.beat_track(onset_envelope=envelope, sr=22050, hop_length=256)
+    prob = np.full((2, 8), 0.5)
+    librosa.sequence.viterbi(prob, np.full((2, 2), 0.5))
 
 
 def _run_local(jobs: list[TakeJob], workers: int, bar: _Bar) -> dict:
@@ -291,6 +300,10 @@ def _run_dask(jobs: list[TakeJob], scheduler, bar: _Bar) -> dict:
         raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); check the address"
                          " (e.g. tcp://host:8786) and that the scheduler runs") from exc
     try:
+        # one worker at a time compiles (or loads) librosa's cached numba code: concurrent
+        # compiles on one machine can tear the shared on-disk cache (see _warm_up)
+        for address in list(client.scheduler_info().get("workers", {})):
+            client.run(_warm_up, workers=[address])
         futures = client.map(process_take, jobs, pure=False)
         by_future = {f.key: job for f, job in zip(futures, jobs)}
         for future in dask_completed(futures):
