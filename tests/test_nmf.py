@@ -7,6 +7,7 @@ import pytest
 from sklearn.decomposition import non_negative_factorization
 from sklearn.decomposition._nmf import _beta_divergence
 
+from takescribe import nmf as nmf_module
 from takescribe.errors import InputError
 from takescribe.nmf import beta_divergence, decompose, penalty_costs
 
@@ -122,3 +123,129 @@ def test_shape_mismatch_names_the_problem():
         decompose(V, W[:-1])
     with pytest.raises(InputError, match="non-negative"):
         decompose(-V, W)
+
+
+# ----------------------------------------------------------------------------- banded products (issue #7)
+
+
+def _harmonic_W(instrument="piano", dtype=np.float32):
+    """The transcription dictionary: harmonic templates of a preset plus the broadband noise templates."""
+    from takescribe.dictionary import harmonic_dictionary
+    from takescribe.spectrogram import BINS_PER_SEMITONE, MIDI_HIGH, MIDI_LOW
+    from takescribe.transcription import noise_templates
+
+    # the VQT axis of compute_spectrogram at zero tuning, A4 = 440 Hz (ISO 16)
+    n_bins = (MIDI_HIGH - MIDI_LOW) * BINS_PER_SEMITONE + 1
+    frequencies = 440.0 * 2.0 ** ((MIDI_LOW - 69) / 12) * 2.0 ** (np.arange(n_bins) / (12 * BINS_PER_SEMITONE))
+    W = harmonic_dictionary(frequencies, instrument=instrument).W
+    return np.hstack([W, noise_templates(n_bins, 3)]).astype(dtype)
+
+
+def _harmonic_problem(T, *, seed=0, dtype=np.float32, instrument="piano"):
+    """V = W H_true (a few active pitches per frame) + a small floor, with the real dictionary W."""
+    W = _harmonic_W(instrument, dtype)
+    rng = np.random.default_rng(seed)
+    H_true = rng.random((W.shape[1], T)) * (rng.random((W.shape[1], T)) < 0.05)
+    V = W.astype(np.float64) @ H_true + 1e-3 * rng.random((W.shape[0], T))
+    return V.astype(dtype), W
+
+
+def _dense_only(monkeypatch):
+    monkeypatch.setattr(nmf_module, "_plan_tiling", lambda W, n_frames: None)
+
+
+@pytest.mark.parametrize("instrument", ["piano", "violin", "flute"])
+def test_harmonic_dictionary_is_tiled_and_every_entry_is_in_one_tile(instrument):
+    W = _harmonic_W(instrument)
+    tiling = nmf_module._plan_tiling(W, 1000)
+    assert tiling is not None  # the templates are banded: the tiles skip >= MIN_TILED_SAVING of the entries
+    assert tiling.madds_per_frame <= (1 - nmf_module.MIN_TILED_SAVING) * 2 * W.size
+    for blocks, A in ((tiling.model, W), (tiling.adjoint, W.T)):
+        covered = np.zeros(A.shape, int)
+        rebuilt = np.zeros_like(A)
+        for i0, i1, tiles in blocks:
+            for j0, j1, tile in tiles:
+                covered[i0:i1, j0:j1] += 1
+                rebuilt[i0:i1, j0:j1] = tile
+        assert covered.max() <= 1  # no entry counted twice
+        np.testing.assert_array_equal(rebuilt, A)  # every non-zero inside a tile, copied exactly
+        assert np.all(covered[A != 0] == 1)
+
+
+def test_dense_or_barely_sparse_dictionaries_stay_dense():
+    rng = np.random.default_rng(12)
+    W = rng.random((298, 91)).astype(np.float32)  # a learned / random dictionary: no zeros
+    assert nmf_module._plan_tiling(W, 1000) is None
+    W[rng.random(W.shape) < 0.2] = 0.0  # 20 % zeros scattered: under the 25 % minimum saving
+    assert nmf_module._plan_tiling(W, 1000) is None
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_tiled_products_are_the_dense_ones_within_rounding(dtype):
+    # Bound from the standard error analysis of a floating-point dot product of length n
+    # (Higham 2002, Accuracy and Stability of Numerical Algorithms, eq. 3.5):
+    # |fl(w·h) − w·h| ≤ γ_n |w|·|h|, γ_n = n u / (1 − n u), u the unit roundoff, for any summation order.
+    W = _harmonic_W(dtype=dtype)
+    F, K = W.shape
+    T = 700
+    rng = np.random.default_rng(13)
+    H = rng.random((K, T)).astype(dtype)
+    R = rng.random((F, T)).astype(dtype)
+    tiling = nmf_module._plan_tiling(W, T)
+    accumulator = nmf_module._accumulator(tiling, T, dtype)
+    u = np.finfo(dtype).eps / 2
+    for product, X, n in ((nmf_module._model_product, H, K), (nmf_module._adjoint_product, R, F)):
+        A = W if product is nmf_module._model_product else W.T
+        out = np.empty((A.shape[0], T), dtype)
+        product(W, X, out, tiling, accumulator)
+        exact = A.astype(np.float64) @ X.astype(np.float64)
+        gamma = n * u / (1 - n * u)
+        assert np.all(np.abs(out - exact) <= gamma * (np.abs(A).astype(np.float64) @ np.abs(X)))
+        assert out.dtype == dtype
+
+
+@pytest.mark.parametrize("beta", [1.0, 2.0, 1.5])
+@pytest.mark.parametrize("threads", [1, 2])  # the one-thread loop; column slabs, one thread each
+def test_tiled_engine_matches_dense_engine(beta, threads, monkeypatch):
+    # float64, so the two engines differ only by the order of additions (rounding ~1e-16 per step)
+    monkeypatch.setattr(nmf_module, "_engine_threads", lambda n_frames: threads)
+    V, W = _harmonic_problem(600, dtype=np.float64)
+    assert nmf_module._plan_tiling(W, 600 // threads) is not None
+    tiled = decompose(V, W, beta=beta, n_iter=30, tol=0)
+    _dense_only(monkeypatch)
+    dense = decompose(V, W, beta=beta, n_iter=30, tol=0)
+    np.testing.assert_allclose(tiled.H, dense.H, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(tiled.costs, dense.costs, rtol=1e-9)
+
+
+def test_tiled_engine_matches_dense_engine_in_float32_with_penalties_and_mask(monkeypatch):
+    V, W = _harmonic_problem(400, dtype=np.float32, seed=14)
+    K, T = W.shape[1], V.shape[1]
+    mask = (np.random.default_rng(15).random((K, T)) > 0.5).astype(np.float32)
+    n_iter = 30
+    options = dict(beta=1.0, n_iter=n_iter, tol=0, continuity=0.1, sparsity=0.05, mask=mask, mask_penalty=0.5)
+    tiled = decompose(V, W, **options)
+    _dense_only(monkeypatch)
+    dense = decompose(V, W, **options)
+    assert tiled.H.dtype == np.float32
+    # float32: each product may round differently (γ_K relative, Higham 2002 eq. 3.5), for n_iter updates
+    u = np.finfo(np.float32).eps / 2
+    scale = float(np.abs(dense.H).max())
+    np.testing.assert_allclose(tiled.H, dense.H, rtol=n_iter * K * u, atol=n_iter * K * u * scale)
+    np.testing.assert_allclose(tiled.costs, dense.costs, rtol=n_iter * K * u)
+
+
+@pytest.mark.parametrize("beta", [1.0, 2.0])
+def test_tiled_updates_match_scikit_learn_with_a_harmonic_dictionary(beta):
+    # Reference: scikit-learn's non_negative_factorization, solver='mu', dictionary fixed (see
+    # test_updates_match_scikit_learn for the transposition), on the real banded dictionary.
+    V, W = _harmonic_problem(250, dtype=np.float64, seed=16)
+    assert nmf_module._plan_tiling(W, V.shape[1]) is not None  # the tiled path is the one under test
+    K = W.shape[1]
+    H0 = np.full((K, V.shape[1]), np.sqrt(V.mean() / K))
+    ours = decompose(V, W, beta=beta, n_iter=20, tol=0, H_init=H0).H
+    A, _, _ = non_negative_factorization(
+        V.T, H=W.T.copy(), n_components=K, init="custom", update_H=False,
+        solver="mu", beta_loss=beta, max_iter=20, tol=0, alpha_W=0.0, alpha_H=0.0,
+    )
+    np.testing.assert_allclose(ours, A.T, rtol=1e-6, atol=1e-9)
