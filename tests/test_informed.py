@@ -10,7 +10,9 @@ conventions (takescribe.evaluate, checked against mir_eval in test_evaluate.py).
 from __future__ import annotations
 
 import json
+import shutil
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -107,3 +109,93 @@ def test_take_of_another_piece_is_flagged():
         transcribe_take(y, sr, reference=reference, instrument="flute")
     with pytest.raises(ScoreError, match="does not seem to be a performance"):
         compare_take(y, sr, reference, instrument="flute", source="flute.flac")
+
+
+# --- legato repeats of one pitch (a bow change, no silence) -------------------------------
+
+BALLAD = "dev_cello_ballad_correct"
+
+
+def _written_repeats(path):
+    """(seconds, MIDI pitch) of every note that repeats the pitch of the note just before it
+    with no rest between, read with music21 (ties merged) at the part's metronome mark."""
+    import music21
+
+    score = music21.converter.parse(str(path))
+    seconds_per_quarter = 60.0 / score.metronomeMarkBoundaries()[0][2].number
+    events = list(score.parts[0].stripTies().flatten().notesAndRests)
+    return [(float(b.offset) * seconds_per_quarter, b.pitch.midi) for a, b in zip(events, events[1:])
+            if not a.isRest and not b.isRest and a.pitch.midi == b.pitch.midi
+            and float(a.offset + a.quarterLength) == float(b.offset)]
+
+
+def test_score_mask_repeats_only_marks_the_written_repeats():
+    # independent reading of the part: music21 (ties merged); alignment None = written tempo
+    path = DEV / INDEX[BALLAD]["files"]["score"]
+    reference = load_reference(path)
+    repeats = _written_repeats(path)
+    assert len(repeats) >= 2  # the ballad has a repeated D3 (three legato quavers)
+    times = np.arange(0, 12, 0.01)
+    pitches = np.arange(36, 80)
+    mask = score_mask(reference, None, pitches, times, tolerance=0.05, floor=0.0, repeats_only=True)
+    for onset, pitch in repeats:
+        assert mask[pitch - 36, int(round(onset / 0.01))] == 1.0
+    marked = {(int(round(n.onset / 0.01)), n.pitch) for n in reference.notes
+              if mask[n.pitch - 36, int(round(n.onset / 0.01))] == 1.0}
+    assert len(marked) == len(repeats)  # and no other note start
+
+
+def _tied_render(mid_path, pitch, first, last):
+    """The take's MIDI with the notes of ``pitch`` starting in [first, last] seconds merged
+    into one held note, rendered like the fixtures (fixtures/render.py, FluidR3_GM)."""
+    import sys
+    import tempfile
+
+    import mido
+
+    sys.path.insert(0, str(FIXTURES))
+    import render
+
+    midi = mido.MidiFile(mid_path)
+    tempo = next((m.tempo for t in midi.tracks for m in t if m.type == "set_tempo"), 500000)
+    lo, hi = (round(s * 1e6 / tempo * midi.ticks_per_beat) for s in (first, last))
+    tied = mido.MidiFile(ticks_per_beat=midi.ticks_per_beat, type=midi.type)
+    for track in midi.tracks:
+        now, events = 0, []
+        for m in track:
+            now += m.time
+            events.append((now, m))
+        on = [t for t, m in events if m.type == "note_on" and m.velocity and m.note == pitch and lo <= t <= hi]
+        keep_last_off = max(on)
+        drop = {i for i, (t, m) in enumerate(events) if getattr(m, "note", None) == pitch and (
+            (m.type == "note_on" and m.velocity and on[0] < t <= hi)
+            or ((m.type == "note_off" or (m.type == "note_on" and not m.velocity)) and on[0] < t <= keep_last_off + 1))}
+        out, before = mido.MidiTrack(), 0
+        for i, (t, m) in enumerate(events):
+            if i not in drop:
+                out.append(m.copy(time=t - before))
+                before = t
+        tied.tracks.append(out)
+    with tempfile.TemporaryDirectory() as folder:
+        path = f"{folder}/tied.mid"
+        tied.save(path)
+        return render.normalize_peak(render.render_midi(path, "FluidR3_GM")), render.SR
+
+
+@pytest.mark.skipif(shutil.which("fluidsynth") is None or not Path("/usr/share/sounds/sf2/FluidR3_GM.sf2").exists(),
+                    reason="fluidsynth or the FluidR3_GM sound font is not installed")
+def test_legato_repeats_are_split_and_a_note_held_through_them_is_not():
+    e, _, _, reference, informed, truth = _run(BALLAD)
+    run = [n for n in truth if n.pitch == 50 and n.onset > 7.5]  # the three legato D3 quavers
+    assert len(run) == 3 and all(b.onset - a.offset < 0.05 for a, b in zip(run, run[1:]))
+    found = [n for n in informed if n.pitch == 50 and run[0].onset - 0.1 <= n.onset <= run[-1].offset]
+    # each repeat heard within the mir_eval onset tolerance (50 ms)
+    assert len(found) == 3
+    assert all(abs(f.onset - t.onset) <= 0.05 for f, t in zip(found, run))
+    # the same take with the three quavers played as one held note (tied): one note in the draft
+    y, sr = _tied_render(DEV / e["files"]["midi"], 50, run[0].onset - 0.1, run[-1].onset + 0.1)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        held = informed_transcription(y, sr, reference, instrument=e["instrument_program"]).notes
+    found = [n for n in held if n.pitch == 50 and run[0].onset - 0.1 <= n.onset <= run[-1].offset]
+    assert len(found) == 1

@@ -21,10 +21,12 @@ import numpy as np
 import pytest
 
 from takescribe.audio import load_audio
+from takescribe.errors import InputError
 from takescribe.evaluate import note_scores
 from takescribe.notes import notes_to_arrays
 from takescribe.noteio import read_maps
-from takescribe.transcription import transcribe
+from takescribe.tracking import activations_to_notes
+from takescribe.transcription import MELODIC_SETTINGS, transcribe
 
 from conftest import FIXTURES
 
@@ -84,3 +86,54 @@ def test_our_scores_equal_mir_eval_on_a_real_transcription():
         ri, librosa.midi_to_hz(rp), ei, librosa.midi_to_hz(ep), offset_ratio=None)
     ours = note_scores(ref, est, with_offsets=False)
     assert (ours.precision, ours.recall, ours.f_measure) == pytest.approx((p, r, f), abs=1e-9)
+
+
+# --- repeated notes of one pitch where the part expects them (score-informed tracking) ---
+# Invented activations (our own construction, no source): one pitch, hop 10 ms, two slow
+# swells like two bow strokes. The rise after the valley (0.03 per frame) is too slow for the
+# rise-after-dip test, so without the part's hint the two strokes stay one note.
+
+def _strokes(valley: float, *, n_frames: int = 220):
+    times = np.arange(n_frames) * 0.01
+    knots = [(0, 0.0), (10, 0.0), (30, 1.0), (95, 1.0), (110, valley), (130, 0.9), (190, 0.9), (200, 0.0),
+             (n_frames - 1, 0.0)]
+    H = np.interp(np.arange(n_frames), *zip(*knots))[None, :]
+    return H, np.array([50]), times
+
+
+def _track(H, pitches, times, zone=None):
+    s = MELODIC_SETTINGS
+    repeats = None
+    if zone is not None:
+        repeats = np.zeros(H.shape, dtype=bool)
+        repeats[:, zone[0]: zone[1]] = True
+    return activations_to_notes(H, pitches, times, onset_threshold=s.onset_threshold,
+                                offset_threshold=s.offset_threshold, release_ratio=s.release_ratio,
+                                reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip, polyphonic=False,
+                                expected_repeats=repeats)
+
+
+def test_expected_repeat_splits_two_bow_strokes_at_the_valley():
+    H, pitches, times = _strokes(0.3)
+    assert len(_track(H, pitches, times)) == 1  # no hint: the slow second stroke is not split off
+    notes = _track(H, pitches, times, zone=(90, 130))  # the part starts pitch 50 again near 1.1 s
+    assert len(notes) == 2
+    # the second note starts on the fall into the valley (between the first stroke's end at
+    # 0.95 s and the valley at 1.10 s), and the first note ends there
+    assert 0.95 <= notes[1].onset <= 1.10
+    assert notes[0].offset == pytest.approx(notes[1].onset)
+
+
+def test_expected_repeat_keeps_a_held_note_whole():
+    # the score is a prior, not a cage: a shallow swell (a held note's bow-pressure change)
+    # under the expected repeat stays one note, and so does a deep valley away from the hint
+    H, pitches, times = _strokes(0.7)
+    assert len(_track(H, pitches, times, zone=(90, 130))) == 1
+    H, pitches, times = _strokes(0.3)
+    assert len(_track(H, pitches, times, zone=(150, 180))) == 1
+
+
+def test_expected_repeats_must_match_the_activations():
+    H, pitches, times = _strokes(0.3)
+    with pytest.raises(InputError, match="expected_repeats"):
+        activations_to_notes(H, pitches, times, expected_repeats=np.zeros((2, H.shape[1]), dtype=bool))
