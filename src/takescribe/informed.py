@@ -18,6 +18,11 @@ Method
    pitch (recovering quiet written notes), ``unexpected_factor`` times it elsewhere.
    Tuning showed that any stricter threshold for unwritten pitches (factor > 1) hid
    real wrong and extra notes, so the default keeps the blind threshold there.
+5. Where the part starts a pitch again right after a note of that pitch
+   (:func:`score_mask` with ``repeats_only``), melodic tracking also splits a sounding
+   note at a valley of its activation between two swells (a bow change or breath
+   between legato repeats). The valley must be as deep as any re-onset's dip, so a
+   note held through the written repeat stays one note.
 
 The score is a prior, never a cage: nothing in this module removes a detected note
 because the part does not have it.

@@ -16,7 +16,9 @@ Method
    ``onset_threshold`` are note candidates (hysteresis). Inside a region, a new
    onset is detected where the activation rises by at least ``reonset_rise`` (a
    fraction of the reference) over ``reonset_frames`` frames after having fallen:
-   this splits repeated notes of one pitch.
+   this splits repeated notes of one pitch. Where the score-informed mode says the
+   part repeats the pitch (``expected_repeats``), a valley between two swells also
+   splits the region: bowed and blown legato repeats rise too slowly for the rise test.
 5. A note's onset is placed where its rise crosses ``attack_fraction`` of its
    peak; it ends where the region ends, at the next onset of the same pitch, or
    where the activation falls below ``release_ratio`` of the note's own peak,
