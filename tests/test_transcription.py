@@ -137,3 +137,25 @@ def test_expected_repeats_must_match_the_activations():
     H, pitches, times = _strokes(0.3)
     with pytest.raises(InputError, match="expected_repeats"):
         activations_to_notes(H, pitches, times, expected_repeats=np.zeros((2, H.shape[1]), dtype=bool))
+
+
+def test_attack_zone_places_a_slow_swell_at_its_attack():
+    # invented: a swell rising over 0.5 s to its peak crosses 30 % of it ~0.15 s after the
+    # bow started it; a modest novelty peak (below novelty_snap) marks the start at 0.12 s
+    s = MELODIC_SETTINGS
+    times = np.arange(120) * 0.01
+    H = np.interp(np.arange(120), [0, 10, 60, 100, 110, 119], [0, 0.05, 1.0, 1.0, 0, 0])[None, :]
+    novelty = np.zeros_like(H)
+    novelty[0, 12] = 0.4
+    zones = np.zeros(H.shape, dtype=bool)
+
+    def onset(zones):
+        return activations_to_notes(H, np.array([50]), times, onset_threshold=s.onset_threshold,
+                                    offset_threshold=s.offset_threshold, polyphonic=False, novelty=novelty,
+                                    novelty_snap=s.novelty_snap, attack_zones=zones,
+                                    zone_snap=s.zone_snap)[0].onset
+
+    assert onset(None) > 0.2  # the attack-fraction crossing of the slow swell
+    assert onset(zones) == onset(None)  # the part does not start the pitch here: no change
+    zones[0, 5:20] = True
+    assert onset(zones) == pytest.approx(0.12)

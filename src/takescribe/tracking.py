@@ -244,6 +244,8 @@ def activations_to_notes(
     expected_onsets: np.ndarray | None = None,
     expected_repeats: np.ndarray | None = None,
     repeat_window: float = 0.25,
+    attack_zones: np.ndarray | None = None,
+    zone_snap: float = 0.3,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -302,6 +304,13 @@ def activations_to_notes(
         none, so it stays one note (the score is a prior, not a cage).
     repeat_window : float
         Seconds on each side of a valley searched for the swells around it.
+    attack_zones : np.ndarray of bool (n_pitches, n_frames), optional
+        Where the part starts each pitch (score-informed mode, melodic instruments). With
+        ``novelty``, a note whose rise has no novelty peak of ``novelty_snap`` just before it
+        starts at the strongest novelty peak of at least ``zone_snap`` inside the zone and
+        before its rise: a slow bowed swell crosses ``attack_fraction`` of its peak long
+        after the bow started it. Only the placement of detected notes changes.
+    zone_snap : float
     attack_fraction : float
         The onset is placed where the activation, rising to the note's peak, crosses
         this fraction of the peak.
@@ -375,12 +384,19 @@ def activations_to_notes(
                 onset_frame = max(min(onset_frame, on), first) if i == 0 and not len(below) else onset_frame
                 if on in placed:
                     onset_frame = on  # a repeat valley: the onset is where the old stroke fades
-                if novelty is not None:
+                if novelty is not None and on not in placed:
                     # snap to the strongest attack of this pitch shortly before or at the rise
                     lo = max(onset_frame - lookback, first)
                     window = novelty[k, lo: onset_frame + 2]
                     if len(window) and window.max() >= novelty_snap:
                         onset_frame = lo + int(np.argmax(window))
+                    elif attack_zones is not None:
+                        # where the part starts this pitch, a slow swell may cross the attack
+                        # level long after its start: a weaker attack of its partials inside
+                        # the written onset's zone and before the rise marks the start
+                        window = novelty[k, first: onset_frame + 2] * attack_zones[k, first: onset_frame + 2]
+                        if len(window) and window.max() >= zone_snap:
+                            onset_frame = first + int(np.argmax(window))
                 # release: first frame after the peak below release_ratio * peak
                 after = part[peak_i:]
                 low = np.nonzero(after < release_ratio * peak)[0]

@@ -51,6 +51,9 @@ class TranscriptionSettings:
     repeat_window : float
         Seconds searched on each side of an activation valley where the part repeats a
         pitch (score-informed; :func:`takescribe.tracking.activations_to_notes`).
+    zone_snap : float
+        Novelty level that places a melodic note's onset inside the zone where the part
+        starts its pitch (score-informed; same function).
     """
 
     beta: float = 1.0
@@ -78,6 +81,7 @@ class TranscriptionSettings:
     novelty_snap: float = 0.1
     ghost_ratio: float = 0.0
     repeat_window: float = 0.25
+    zone_snap: float = 0.3
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
@@ -192,8 +196,8 @@ def transcribe(
         axis are kept, in order).
     ghost_exempt : np.ndarray of bool (n_pitches, n_frames), optional
         Where the part starts each pitch (score-informed): a note starting there is never
-        dropped as a harmonic ghost, and a re-onset there needs less evidence. Rows follow
-        ``pitches`` like ``mask``.
+        dropped as a harmonic ghost; a re-onset there needs less evidence (polyphonic) or
+        a weaker attack places the onset (melodic). Rows follow ``pitches`` like ``mask``.
     repeat_onsets : np.ndarray of bool (n_pitches, n_frames), optional
         Where the part starts a pitch again right after a note of that pitch
         (score-informed): an activation valley there starts a new note (a bow change
@@ -281,6 +285,8 @@ def transcribe(
         # and conversely: a struck note decays, so a valley before a repeated strike is no
         # second onset, while a bowed or blown repeat may rise too slowly for the rise test
         expected_repeats=None if preset.polyphonic else repeat_onsets,
+        attack_zones=None if preset.polyphonic else ghost_exempt,
+        zone_snap=settings.zone_snap,
         repeat_window=settings.repeat_window,
     )
     exempt = None
