@@ -332,3 +332,18 @@ def test_silence_is_not_the_part():
         alignment = align_reference(y, SR, ref)
     assert alignment.confidence < MISMATCH_CONFIDENCE
     assert any(issubclass(w.category, AlignmentWarning) for w in caught)
+
+
+def test_part_rendering_in_blocks_equals_one_block():
+    # The part's pitch energy is built a few thousand frames at a time (memory stays flat on
+    # hour-long parts); a block edge must not change a single value. Part: a chorale from
+    # music21's bundled public-domain corpus (BWV 269).
+    from takescribe.align import _render_reference
+
+    reference = load_reference(corpus.getWork("bach/bwv269"), part=0)
+    n_frames = int(np.ceil((max(n.offset for n in reference.notes) + 0.3) * 22050 / 512)) + 1
+    whole = _render_reference(reference, 22050, 512, n_frames, (4096, 2048), block_frames=10**9)
+    for block_frames in (37, 500):
+        blocked = _render_reference(reference, 22050, 512, n_frames, (4096, 2048), block_frames=block_frames)
+        for a, b in zip(whole, blocked):
+            np.testing.assert_array_equal(a, b)

@@ -311,13 +311,15 @@ def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block:
 
 
 def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: int,
-                      n_ffts: tuple[int, ...]) -> list[np.ndarray]:
+                      n_ffts: tuple[int, ...], *, block_frames: int = 4096) -> list[np.ndarray]:
     """Pitch energy of the part from harmonic templates, one array per analysis window length.
 
     Each note is an envelope (exponential decay while held, fast release after) on a grid
     four times finer than the frames, spread over the pitches of its first eight partials;
     the sum is smoothed with the squared analysis window (the time response of a power
-    spectrogram) and sampled at the frame centres.
+    spectrogram) and sampled at the frame centres. The fine grid is built ``block_frames``
+    frames at a time (with the window's reach on each side), so memory does not grow
+    with the length of the part beyond the result itself.
     """
     sub = 4
     dt = hop_length / sr / sub
@@ -325,15 +327,11 @@ def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: 
     n_pitches = HIGHEST_PITCH - LOWEST_PITCH + 1
     release = 0.1
     harmonics = np.arange(1, 9)
-    energy = np.zeros((n_pitches, n_sub), dtype=np.float32)
+    # each note's span on the fine grid and its weight per pitch row
+    spans, note_rows, note_weights, helds = [], [], [], []
     for note in reference.notes:
         start = int(round(note.onset / dt))
         stop = min(int(round((note.offset + 3 * release) / dt)), n_sub)
-        if start >= n_sub or stop <= start:
-            continue
-        t = np.arange(stop - start) * dt
-        held = note.offset - note.onset
-        env = (np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)).astype(np.float32)
         weights = np.zeros(n_pitches, dtype=np.float32)
         position = note.pitch + 12.0 * np.log2(harmonics) - LOWEST_PITCH
         low = np.floor(position).astype(int)
@@ -342,20 +340,39 @@ def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: 
             ok = (bins >= 0) & (bins < n_pitches)
             np.add.at(weights, bins[ok], (share / harmonics)[ok])
         rows = np.flatnonzero(weights)
-        energy[rows, start:stop] += weights[rows, None] * env[None, :]
-    out = []
+        spans.append((start, stop) if start < n_sub and stop > start else (0, 0))
+        note_rows.append(rows)
+        note_weights.append(weights[rows, None])
+        helds.append(note.offset - note.onset)
+    starts = np.array([a for a, _ in spans], dtype=np.int64)
+    stops = np.array([b for _, b in spans], dtype=np.int64)
+    kernels = []
     for n_fft in n_ffts:
         # smoothing with the squared window, evaluated only at the frame centres
         taps = max(int(round(n_fft / (hop_length / sub))), 1)
         kernel = np.hanning(taps + 2)[1:-1] ** 2
         kernel /= kernel.sum()
-        half = taps // 2
-        padded = np.pad(energy, ((0, 0), (half, taps)))
-        smooth = np.zeros((n_pitches, n_frames), dtype=np.float32)
-        for k, w in enumerate(kernel):
-            # frame n takes energy[n * sub + k - half] * kernel[k]
-            smooth += np.float32(w) * padded[:, k:k + n_frames * sub:sub][:, :n_frames]
-        out.append(smooth)
+        kernels.append((kernel, taps // 2))
+    before = max(half for _, half in kernels)
+    after = max(len(kernel) - half for kernel, half in kernels)
+    out = [np.zeros((n_pitches, n_frames), dtype=np.float32) for _ in n_ffts]
+    for a in range(0, n_frames, block_frames):
+        b = min(a + block_frames, n_frames)
+        lo, hi = a * sub - before, (b - 1) * sub + after + 1
+        energy = np.zeros((n_pitches, hi - lo), dtype=np.float32)
+        for i in np.flatnonzero((starts < hi) & (stops > lo) & (stops > starts)):
+            s0, s1 = max(starts[i], lo), min(stops[i], hi)
+            t = np.arange(s0 - starts[i], s1 - starts[i]) * dt
+            held = helds[i]
+            env = (np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)
+                   ).astype(np.float32)
+            energy[note_rows[i], s0 - lo:s1 - lo] += note_weights[i] * env[None, :]
+        for (kernel, half), smooth in zip(kernels, out):
+            block = smooth[:, a:b]
+            for k, w in enumerate(kernel):
+                # frame n takes energy[n * sub + k - half] * kernel[k] (zero outside the part)
+                first = a * sub + k - half - lo
+                block += np.float32(w) * energy[:, first:first + (b - a) * sub:sub][:, :b - a]
     return out
 
 
@@ -374,10 +391,13 @@ def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, fram
     if ref <= 0:
         ref = 1.0
     sounding = total > ref * 10 ** (_SILENCE_DB / 10)
+    classes = [(np.arange(energy_chroma.shape[0]) + LOWEST_PITCH) % 12 == c for c in range(12)]
+    step = 8192  # frames at a time: the compressed energies never exist for the whole take at once
     folded = np.zeros((12, n_frames), dtype=np.float32)
-    logc = np.log1p(_COMPRESSION * energy_chroma / ref)
-    for c in range(12):
-        folded[c] = logc[(np.arange(logc.shape[0]) + LOWEST_PITCH) % 12 == c].sum(axis=0)
+    for a in range(0, n_frames, step):
+        logc = np.log1p(_COMPRESSION * energy_chroma[:, a:a + step] / ref)
+        for c in range(12):
+            folded[c, a:a + step] = logc[classes[c]].sum(axis=0)
     norm = np.linalg.norm(folded, axis=0)
     chroma = np.where(sounding[None, :] & (norm[None, :] > 0), folded / np.maximum(norm, 1e-12)[None, :],
                       np.float32(1 / np.sqrt(12)))
@@ -386,11 +406,14 @@ def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, fram
     ref_o = float(np.percentile(total_o, 99)) if total_o.size else 0.0
     if ref_o <= 0:
         ref_o = 1.0
-    logo = np.log1p(_COMPRESSION * energy_onset / ref_o)
-    rise = np.maximum(0.0, np.diff(logo, axis=1, prepend=0.0))  # sound at frame 0 is an onset
     onset = np.zeros((12, n_frames), dtype=np.float32)
-    for c in range(12):
-        onset[c] = rise[(np.arange(rise.shape[0]) + LOWEST_PITCH) % 12 == c].sum(axis=0)
+    previous = 0.0  # sound at frame 0 is an onset
+    for a in range(0, n_frames, step):
+        logo = np.log1p(_COMPRESSION * energy_onset[:, a:a + step] / ref_o)
+        rise = np.maximum(0.0, np.diff(logo, axis=1, prepend=previous))
+        previous = logo[:, -1:]
+        for c in range(12):
+            onset[c, a:a + step] = rise[classes[c]].sum(axis=0)
     onorm = np.linalg.norm(onset, axis=0)
     local = maximum_filter1d(onorm, size=max(3, int(2 * _LOCAL_NORM_SECONDS * frame_rate) | 1))
     floor = 0.05 * float(np.percentile(onorm, 99)) if onorm.size else 0.0
