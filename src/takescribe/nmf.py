@@ -19,6 +19,10 @@ Conventions
   ``H ← H ⊙ (∇⁻) / (∇⁺)``, the heuristic rule that is exact (monotone) for the
   β-divergence alone (Lee and Seung 2001 for β ∈ {1, 2}; Févotte and Idier 2011
   for 1 ≤ β ≤ 2) and carries no such proof with the penalties.
+- With W fixed, the products W·H and Wᵀ·X skip the zeros of a banded W (harmonic
+  templates) by running one BLAS product per dense tile of W (see ``_plan_tiling``).
+  Only exact zeros are skipped: results are the dense ones up to the order of float
+  additions. Other dictionaries (learned, random) keep the dense products.
 - Convergence: the relative decrease of the cost, checked every ``check_every``
   iterations, below ``tol``. Costs are evaluated in V's dtype and summed in float64
   (:func:`beta_divergence`, in float64 throughout, is the reference the tests use).
@@ -298,7 +302,7 @@ class _Tiling:
 
     model: tuple
     adjoint: tuple
-    scratch_rows: int
+    accumulator_rows: int
     madds_per_frame: int
     dense_madds_per_frame: int
 
@@ -413,8 +417,8 @@ def _plan_tiling(W: np.ndarray, n_frames: int) -> _Tiling | None:
         return tuple((i0, i1, tuple((j0, j1, np.ascontiguousarray(A[i0:i1, j0:j1])) for j0, j1 in runs))
                      for i0, i1, runs in blocks)
 
-    scratch_rows = max([i1 - i0 for i0, i1, runs in model + adjoint if len(runs) > 1], default=0)
-    return _Tiling(model=tiles(model, W), adjoint=tiles(adjoint, W.T), scratch_rows=scratch_rows,
+    accumulator_rows = max([i1 - i0 for i0, i1, runs in model + adjoint if len(runs) > 1], default=0)
+    return _Tiling(model=tiles(model, W), adjoint=tiles(adjoint, W.T), accumulator_rows=accumulator_rows,
                    madds_per_frame=_area(model) + _area(adjoint), dense_madds_per_frame=2 * F * K)
 
 
@@ -451,9 +455,9 @@ def _adjoint_product(W, X, out, tiling, scratch) -> None:
 
 def _accumulator(tiling, n_frames, dtype):
     """The accumulation buffer a tiling needs for ``n_frames`` frames (None if it needs none)."""
-    if tiling is None or tiling.scratch_rows == 0:
+    if tiling is None or tiling.accumulator_rows == 0:
         return None
-    return np.empty((tiling.scratch_rows, n_frames), dtype)
+    return np.empty((tiling.accumulator_rows, n_frames), dtype)
 
 
 #: Fewest frames per thread worth a thread of its own (smaller slabs make BLAS less efficient).
