@@ -2,13 +2,15 @@
 
 Usage::
 
-    python tests/benchmarks/bench_findings.py [--ground-truth]
+    python tests/benchmarks/bench_findings.py [--ground-truth] [--onsets]
 
 For every take in fixtures/deviations, runs ``takescribe.pipeline.compare_take`` (score-informed
 transcription, alignment, comparison) — or, with ``--ground-truth``, compares the played
 ground-truth notes, to separate comparison errors from transcription errors — and matches the
 findings to the injected deviations by kind, pitch and time within 0.25 s. Prints per take and
 per kind precision, recall and F-measure, and false findings per minute on the correct takes.
+``--onsets`` adds, per take, the onset F-measure of the score-informed draft against the take's
+played notes (mir_eval conventions through takescribe.evaluate: 50 ms, 50 cents).
 """
 
 from __future__ import annotations
@@ -23,6 +25,7 @@ from pathlib import Path
 from takescribe.align import align_reference
 from takescribe.audio import load_audio
 from takescribe.compare import compare_notes
+from takescribe.evaluate import note_scores
 from takescribe.noteio import read_maps
 from takescribe.pipeline import compare_take
 from takescribe.score import load_reference
@@ -57,6 +60,7 @@ def match(found, injected):
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--ground-truth", action="store_true")
+    parser.add_argument("--onsets", action="store_true", help="also print the informed draft's onset F per take")
     args = parser.parse_args(argv)
     index = json.loads((DEV / "index.json").read_text())
     per_kind = collections.defaultdict(lambda: [0, 0, 0])  # hits, found, injected
@@ -71,7 +75,10 @@ def main(argv=None) -> int:
                                            read_maps(DEV / e["files"]["notes"]),
                                            judge_durations=e["instrument_program"] >= 8)
             else:
-                comparison, _, _ = compare_take(y, sr, reference, instrument=e["instrument_program"])
+                comparison, result, _ = compare_take(y, sr, reference, instrument=e["instrument_program"])
+                if args.onsets:
+                    f = note_scores(read_maps(DEV / e["files"]["notes"]), result.notes, with_offsets=False).f_measure
+                    print(f"{e['name']:30s} informed draft onset F {f:.3f}")
         # findings linked to a hesitation or a restart are part of that one event (the teacher reads one)
         found = [f for f in comparison.to_json()["findings"] if f.get("linked_to") is None]
         injected = json.loads((DEV / e["files"]["deviations"]).read_text())
