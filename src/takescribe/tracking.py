@@ -180,7 +180,7 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     extra = [start + v for v in _repeat_valleys(a[start:stop], repeats[start:stop], rise[start:stop], dip,
                                                 repeat_frames)]
     extra = [v for v in extra if v - start >= 2 * frames
-             and not any(-frames <= o - v <= repeat_frames for o in onsets)]
+             and not any(-2 * frames <= o - v <= repeat_frames for o in onsets)]
     return sorted(onsets + extra), set(extra)
 
 
