@@ -26,7 +26,10 @@ Method
    predicted by a robust line (Siegel's repeated median) through its neighbouring groups
    (``neighbours`` on each side, the group itself left out; fewer than four groups take the
    overall pace). Gradual tempo drift is followed by the line, so only the local residual
-   counts as early or late.
+   counts as early or late. At the edge of a timing segment (the first or last notes, next
+   to a pause) the line is extrapolated from one side, so the note is also read against
+   the overall pace through the same neighbours, and only a residual beyond the tolerance
+   in both readings counts.
 5. Hesitations: walking through the part, a group that arrives more than
    ``hesitation_threshold`` seconds after the line through the groups before it *and*
    whose delay persists on the next group (the music resumes shifted, rather than one
@@ -666,6 +669,26 @@ class _TempoModel:
         slope, intercept = line
         return slope * s + intercept
 
+    def edge_prediction(self, s: float, *, exclude_group: int | None = None) -> float | None:
+        """At the edge of a timing segment, the take time of ``s`` at the overall pace.
+
+        There the local line is extrapolated from notes on one side only, so an error in
+        its slope grows with the distance; this second reading keeps the intercept of the
+        same notes but the overall pace. None away from an edge.
+        """
+        seg = self.segment_at(s)
+        members = np.flatnonzero(self.segment_of_group == seg)
+        if exclude_group is not None:
+            members = members[members != exclude_group]
+        gs = self.group_scores[members]
+        before = members[gs < s - 1e-9][-self.neighbours:]
+        after = members[gs > s + 1e-9][: self.neighbours]
+        if members.size == 0 or (before.size and after.size):
+            return None
+        chosen = np.concatenate([before, after])
+        x, y = self.group_scores[chosen], self.group_takes[chosen]
+        return float(self.default_slope * s + np.median(y - self.default_slope * x))
+
     def predict_in_segment(self, s: float, segment: int) -> float:
         """Take time of score time ``s`` on the tempo line of another timing segment."""
         line = self.fit(s, segment=segment)
@@ -1186,6 +1209,12 @@ def compare_notes(
         else:
             expected = model.predict(float(part.onsets[i]), exclude_group=g, fallback=float(predicted[i]))
         residual = float(played_on[j] - expected)
+        if i not in alt_expected:
+            # at a segment edge the pulse is uncertain: a note is early or late only if it is
+            # so against both readings of it (the local line and the overall pace)
+            edge = model.edge_prediction(float(part.onsets[i]), exclude_group=g)
+            if edge is not None and abs(played_on[j] - edge) < abs(residual):
+                residual = float(played_on[j] - edge)
         name = pitch_name(part.pitches[i])
         common = dict(**pos, expected_pitch=int(part.pitches[i]), played_pitch=int(played_pitch[j]),
                       reference_index=i, played_index=j)
