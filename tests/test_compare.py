@@ -244,6 +244,28 @@ def test_held_short_and_long(factor, kind):
     assert compare_notes(ref, None, played, judge_durations=False).findings == ()
 
 
+def test_repeat_not_played_again_is_one_missed_finding():
+    # Two repeated quarters; the take holds the first through the second instead of playing it
+    # again (or the transcription merged them). One event, one finding: the missing repeat,
+    # saying the pitch sounded on; the long note is not also held_long.
+    events = [(q, 1.0, p) for q, p in enumerate([60, 62, 64, 64, 65, 67, 69, 71, 72, 71, 69, 67])]
+    ref = FakeReference(events)
+    played = render(ref, legato=1.0)
+    k = 2  # the first E4; the second (k + 1) is not played again
+    played[k] = Note(played[k].onset, played[k + 1].offset, 64)
+    del played[k + 1]
+    result = compare_notes(ref, None, played)
+    assert [f.kind for f in result.findings] == ["missed"]
+    assert result.findings[0].expected_pitch == 64
+    assert "sounded on" in result.findings[0].text
+    # a plain missed note (silence in its place) keeps the plain wording
+    played = render(ref, legato=1.0)
+    del played[6]
+    result = compare_notes(ref, None, played)
+    assert [f.kind for f in result.findings] == ["missed"]
+    assert "sounded on" not in result.findings[0].text
+
+
 # --------------------------------------------------------------------------- hesitation and restart
 
 

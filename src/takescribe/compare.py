@@ -48,7 +48,9 @@ Method
    more than ``1 + duration_tolerance`` times its written length at the local tempo (and
    off by more than ``timing_tolerance`` seconds) is ``held_short`` / ``held_long``; a
    note released just as the next one starts is never ``held_short`` (the next note, if
-   early or extra, is reported itself).
+   early or extra, is reported itself), and a note that sounds on through the place of a
+   missing repeat of its pitch is not ``held_long``: the missing note is the one finding
+   (its text says the pitch sounded on through its place).
 
 Conventions
 -----------
@@ -1200,6 +1202,18 @@ def compare_notes(
         note_status[i] = "wrong_pitch"
         played_status[j] = "matched"
 
+    def sounds_through(j: int, t: float) -> bool:
+        """Played note ``j`` was already sounding at take time ``t`` and went on after it."""
+        return played_on[j] < t - timing_tolerance and played_off[j] > t + timing_tolerance
+
+    # unpartnered reference notes, by pitch: a played note that sounds on through where one of
+    # them should start is a repeated note not heard apart (not re-articulated, or merged by
+    # the transcription); that is one event, reported on the missing note, not also held_long
+    unheard_by_pitch: dict[int, list] = {}
+    for i in range(n_ref):
+        if note_status[i] == "missed":
+            unheard_by_pitch.setdefault(int(part.pitches[i]), []).append(float(predicted[i]))
+
     flagged_refs: set = set()
     for i, j in same:
         pos = where(i)
@@ -1234,7 +1248,8 @@ def compare_notes(
             kind = None
             if ratio < 1.0 - duration_tolerance and _silence_after(j, played_on, played_off, pool) > timing_tolerance:
                 kind = "held_short"
-            elif ratio > 1.0 + duration_tolerance and g not in before_hesitation:
+            elif (ratio > 1.0 + duration_tolerance and g not in before_hesitation
+                  and not any(sounds_through(j, t) for t in unheard_by_pitch.get(int(part.pitches[i]), ()))):
                 kind = "held_long"
             if kind is not None:
                 add(kind, played_on[j], deviation=difference,
@@ -1259,8 +1274,12 @@ def compare_notes(
                 note_status[i] = "uncertain"
                 continue
             pos = where(i)
-            add("missed", predicted[i], **pos, expected_pitch=int(part.pitches[i]), reference_index=i,
-                text=f"{_bar(pos)}: {pitch_name(part.pitches[i])} in the part was not heard.")
+            merged = any(sounds_through(j, float(predicted[i])) for j in range(n_played)
+                         if played_pitch[j] == part.pitches[i] and played_status[j] == "matched")
+            text = (f"{_bar(pos)}: {pitch_name(part.pitches[i])} in the part was not heard"
+                    + (" as a new note: the same pitch sounded on through its place (not played again?)."
+                       if merged else "."))
+            add("missed", predicted[i], **pos, expected_pitch=int(part.pitches[i]), reference_index=i, text=text)
 
     def take_position(t: float) -> dict:
         s = _take_to_score(model, t, part)
