@@ -266,6 +266,24 @@ def test_repeat_not_played_again_is_one_missed_finding():
     assert "sounded on" not in result.findings[0].text
 
 
+def test_note_under_the_partials_of_a_lower_note_is_uncertain_not_missed():
+    # Harmonic series (common practice, no source): the 2nd, 3rd and 4th partials of a note lie
+    # 12, 19 and 24 semitones above it. A transcription cannot tell whether a part note there was
+    # played while the lower note sounds, so it is not reported missed; a note at any other
+    # interval is.
+    events = [(0.0, 2.0, 48), (0.0, 2.0, 55), (0.0, 2.0, 67), (0.0, 2.0, 64)]
+    events += [(2.0 + q, 1.0, p) for q, p in enumerate([60, 62, 64, 65, 67, 69])]
+    ref = FakeReference(events)
+    played = [n for n in render(ref) if not (n.onset == 0.0 and n.pitch in (67, 64))]
+    plain = compare_notes(ref, None, played)
+    assert sorted(f.expected_pitch for f in plain.findings if f.kind == "missed") == [64, 67]
+    masked = compare_notes(ref, None, played, mask_partials=True)
+    assert [(f.kind, f.expected_pitch) for f in masked.findings] == [("missed", 64)]  # E4: 16 semitones over C3
+    status = {n.pitch: masked.note_status[k] for k, n in enumerate(ref.notes) if n.onset == 0.0}
+    assert status[67] == "uncertain" and status[64] == "missed"
+    assert masked.summary["notes_uncertain"] == 1
+
+
 # --------------------------------------------------------------------------- hesitation and restart
 
 

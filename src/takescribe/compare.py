@@ -72,6 +72,7 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
         "notes_in_part": int,            # reference notes
         "notes_played": int,             # played notes given
         "notes_played_correctly": int,   # right pitch, no timing or duration finding
+        "notes_uncertain": int,          # part notes the recording cannot settle (no finding)
         "counts": {kind: int, ...},      # one entry per kind in KINDS; events only (not the
                                          # notes linked to a restart or hesitation)
         "linked_details": int,           # findings linked to a restart or hesitation
@@ -97,7 +98,7 @@ JSON schema (``Comparison.to_json()`` / :func:`findings_json`)
          "to_measure": int | null, "to_beat": float | null,          # restart only
          "text": str}, ...
       ],
-      "note_status": [str, ...],         # per reference note: played / wrong_pitch / missed
+      "note_status": [str, ...],         # per reference note: played / wrong_pitch / missed / uncertain
       "played_status": [str, ...]        # per played note: matched / extra
     }
 
@@ -950,6 +951,7 @@ def compare_notes(
     min_restart_notes: int = 3,
     judge_durations: bool = True,
     faint_notes: Sequence[Note] | None = None,
+    mask_partials: bool = False,
 ) -> Comparison:
     """Compare the notes of a take with the reference part.
 
@@ -991,6 +993,12 @@ def compare_notes(
         faint note of its pitch starting within 0.15 s of where it should sound gets the status
         ``"uncertain"`` and no finding: the evidence is too weak to put it in the draft and too
         strong to tell the player it was not played.
+    mask_partials : bool
+        For played notes from a transcription: a part note that would be ``missed`` while a
+        played note 12, 19 or 24 semitones below it sounds where it starts gets the status
+        ``"uncertain"`` and no finding. Its partials coincide with that note's 2nd, 3rd or 4th
+        partial, so a spectrum cannot tell whether it was played (the factorization gives
+        that energy to the lower note). Off for notes known exactly (ground truth, MIDI).
 
     Returns
     -------
@@ -1214,6 +1222,14 @@ def compare_notes(
         if note_status[i] == "missed":
             unheard_by_pitch.setdefault(int(part.pitches[i]), []).append(float(predicted[i]))
 
+    def masked_by_partials(i: int) -> bool:
+        """A played note a partial below part note ``i`` (12, 19, 24 semitones) sounds where it starts."""
+        if not mask_partials:
+            return False
+        t = float(predicted[i])
+        return any(played_status[j] == "matched" and int(part.pitches[i] - played_pitch[j]) in _PARTIAL_STEPS
+                   and played_on[j] <= t + _FAINT_WINDOW and played_off[j] > t for j in range(n_played))
+
     flagged_refs: set = set()
     for i, j in same:
         pos = where(i)
@@ -1273,6 +1289,11 @@ def compare_notes(
                 # some evidence the note sounded: too faint for the draft, too much to blame the player
                 note_status[i] = "uncertain"
                 continue
+            if masked_by_partials(i):
+                # an octave, twelfth or double octave above a note sounding with it: its partials
+                # are that note's overtones, so the spectrum cannot tell whether it was played
+                note_status[i] = "uncertain"
+                continue
             pos = where(i)
             merged = any(sounds_through(j, float(predicted[i])) for j in range(n_played)
                          if played_pitch[j] == part.pitches[i] and played_status[j] == "matched")
@@ -1317,6 +1338,7 @@ def compare_notes(
         "notes_in_part": n_ref,
         "notes_played": n_played,
         "notes_played_correctly": int(correct),
+        "notes_uncertain": int(sum(1 for status in note_status if status == "uncertain")),
         "counts": counts,
         "linked_details": len(findings) - len(events),
         "findings_per_minute": round(len(events) / (take_end / 60.0), 3) if take_end > 0 else 0.0,
@@ -1420,6 +1442,9 @@ def _local_rate(s_sorted: np.ndarray, q_sorted: np.ndarray, s: float) -> float:
 
 
 _FAINT_WINDOW = 0.15  # seconds between a faint note and where a part note should sound
+# semitones above a sounding note where its 2nd, 3rd and 4th partials lie (octave, twelfth,
+# double octave; harmonic series, common practice, no source)
+_PARTIAL_STEPS = (12, 19, 24)
 
 _KIND_ORDER = {k: n for n, k in enumerate(("restart", "hesitation", "wrong_pitch", "missed", "extra", "early", "late", "held_short", "held_long"))}
 

@@ -312,7 +312,7 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
     comparison = compare_notes(reference, alignment, result.notes, timing_tolerance=timing_tolerance,
                                duration_tolerance=duration_tolerance,
                                judge_durations=not result.instrument.decaying,
-                               faint_notes=faint_notes(result, reference, alignment))
+                               faint_notes=faint_notes(result, reference, alignment), mask_partials=True)
     return comparison, result, alignment
 
 

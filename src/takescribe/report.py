@@ -246,11 +246,17 @@ def render_html(
     figures += [(KIND_STYLES[k].label, str(counts.get(k, 0))) for k in KINDS if counts.get(k, 0)]
     if summary.get("linked_details"):
         figures.append(("notes listed under a restart or pause", str(summary["linked_details"])))
+    if summary.get("notes_uncertain"):
+        figures.append(("notes to check by ear", str(summary["notes_uncertain"])))
     confidence = summary.get("alignment_confidence")
     if confidence is not None:
         figures.append(("how sure the follow-along is", f"{100 * confidence:.0f} %"))
     out.append('<div class="figures">' + "".join(
         f'<div class="figure">{esc(label)}<b>{esc(value)}</b></div>' for label, value in figures) + "</div>")
+    if summary.get("notes_uncertain"):
+        out.append(f"<p>{summary['notes_uncertain']} note(s) of the part could not be judged from the recording: "
+                   "heard too faintly, or hidden under the overtones of a lower note sounding with them. They are "
+                   "drawn with a dotted grey outline and a question mark below; listen for them yourself.</p>")
     busiest = summary.get("bars_with_most_findings") or []
     if busiest:
         bars = ", ".join(f"bar {_label(comparison, reference, b['measure'])} ({b['findings']})" for b in busiest)
@@ -320,6 +326,9 @@ def _legend_html() -> str:
                      f"{html.escape(KIND_STYLES[kind].label)}</span>")
     items.append('<span><svg width="26" height="14" aria-hidden="true"><rect x="1" y="1" width="24" height="12" '
                  'fill="url(#hatch)" stroke="#000" stroke-width=".5"/></svg>pause / attempt started again</span>')
+    items.append('<span><svg width="26" height="14" aria-hidden="true"><rect x="1" y="3" width="24" height="8" '
+                 'fill="none" stroke="#767676" stroke-width="1.4" stroke-dasharray="1.5,2"/></svg>'
+                 "could not be judged (listen)</span>")
     return '<div class="legend">' + "".join(items) + "</div>"
 
 
@@ -407,6 +416,14 @@ def _row_svg(comparison, notes, played, exp_on, exp_off, times, restarts, t0, t1
         n = notes[i]
         status = comparison.note_status[i] if i < len(comparison.note_status) else "played"
         dash = ' stroke-dasharray="3,2"' if status == "missed" else ""
+        if status == "uncertain":
+            parts.append(f'<g><title>{html.escape(pitch_name(n.pitch))}: could not be judged from the recording'
+                         f'</title><rect x="{x(exp_on[i])}" y="{y(n.pitch)}" '
+                         f'width="{max(x(exp_off[i])-x(exp_on[i]), 1.5)}" height="{px_per_pitch}" fill="none" '
+                         f'stroke="#767676" stroke-width="1.4" stroke-dasharray="1.5,2"/>'
+                         f'<text x="{x(exp_on[i]) + 1}" y="{y(n.pitch) + px_per_pitch + 8}" font-size="9" '
+                         f'fill="#333">?</text></g>')
+            continue
         parts.append(f'<rect x="{x(exp_on[i])}" y="{y(n.pitch)}" width="{max(x(exp_off[i])-x(exp_on[i]), 1.5)}" '
                      f'height="{px_per_pitch}" fill="{_PART_FILL}" fill-opacity="0" stroke="#000" stroke-width="1.1"{dash}/>')
     for n in in_row_played:
