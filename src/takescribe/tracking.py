@@ -20,7 +20,8 @@ Method
    part repeats the pitch (``expected_repeats``), a valley between two swells also
    splits the region: bowed and blown legato repeats rise too slowly for the rise test.
 5. A note's onset is placed where its rise crosses ``attack_fraction`` of its
-   peak; it ends where the region ends, at the next onset of the same pitch, or
+   peak (or at a novelty peak of its pitch just before, or, where the part starts
+   the pitch, inside that zone: ``attack_zones``); it ends where the region ends, at the next onset of the same pitch, or
    where the activation falls below ``release_ratio`` of the note's own peak,
    whichever comes first. Notes shorter than ``min_duration`` are dropped.
 6. Velocity is ``round(127 · sqrt(peak / reference))`` clipped to 1..127: a
@@ -128,12 +129,11 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
 def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: float, width: int) -> list[int]:
     """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
 
-    Returns, for each valley, the frame where the fall into it is half-way down.
-
     A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
     the highest activation within ``width`` frames before it *and* within ``width`` frames
     after it, and the swell after it rises by at least ``rise``. Of valleys closer than
-    ``width`` frames only the deepest is kept.
+    ``width`` frames only the deepest is kept. Returns, for each valley, the frame where
+    the fall into it is half-way down (the new note's start).
     """
     n = len(seg)
     if n < 3 or width < 1 or not zone[1:-1].any():
@@ -311,6 +311,7 @@ def activations_to_notes(
         before its rise: a slow bowed swell crosses ``attack_fraction`` of its peak long
         after the bow started it. Only the placement of detected notes changes.
     zone_snap : float
+        Smallest novelty peak that places an onset inside ``attack_zones``.
     attack_fraction : float
         The onset is placed where the activation, rising to the note's peak, crosses
         this fraction of the peak.
@@ -348,8 +349,9 @@ def activations_to_notes(
     end_time = frame_times[-1] + hop
     lookback = max(int(round(0.1 / hop)), 1)
     repeat_frames = max(int(round(repeat_window / hop)), 1)
-    if expected_repeats is not None and np.shape(expected_repeats) != H.shape:
-        raise InputError(f"expected_repeats must have the shape of H {H.shape}, got {np.shape(expected_repeats)}")
+    for name, zones in (("expected_repeats", expected_repeats), ("attack_zones", attack_zones)):
+        if zones is not None and np.shape(zones) != H.shape:
+            raise InputError(f"{name} must have the shape of H {H.shape}, got {np.shape(zones)}")
     notes: list[Note] = []
     for k in range(K):
         a = Hsel[k]
