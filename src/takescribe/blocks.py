@@ -62,7 +62,7 @@ from .instruments import Instrument, resolve_instrument
 from .nmf import decompose
 from .notes import Note, sort_notes
 from .spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
-from .tracking import activations_to_notes, pitch_novelty
+from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 from .transcription import Transcription, TranscriptionSettings, noise_templates, settings_for
 
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
@@ -108,6 +108,20 @@ def _frame_start(V: np.ndarray, W_colsum_mean: float, K: int) -> np.ndarray:
     """A frame-local start for H: each frame's energy spread evenly over the K templates."""
     energy = V.sum(axis=0, dtype=np.float64) / (K * max(W_colsum_mean, 1e-12))
     return np.repeat(np.maximum(energy, 1e-6).astype(V.dtype)[None, :], K, axis=0)
+
+
+def _exempt(starts: np.ndarray | None, pitches: np.ndarray, times: np.ndarray):
+    """Notes the part starts there are never dropped as harmonic ghosts (None: no part)."""
+    if starts is None:
+        return None
+    rows = {int(p): k for k, p in enumerate(pitches)}
+
+    def exempt(note: Note) -> bool:
+        k = rows.get(note.pitch)
+        f = min(int(np.searchsorted(times, note.onset)), len(times) - 1)
+        return k is not None and bool(starts[k, f])
+
+    return exempt
 
 
 def _novelty(V: np.ndarray, W: np.ndarray, peak: float, *, compression: float = 100.0) -> np.ndarray:
@@ -179,6 +193,8 @@ def transcribe_long(
         instrument = program if program is not None else "piano"
     preset = resolve_instrument(instrument)
     settings = settings or settings_for(preset)
+    # harmonic ghosts: the blind setting, or the informed one (notes the part starts are exempt)
+    ghost_ratio = settings.ghost_ratio if reference is None else INFORMED_DEFAULTS["ghost_ratio"]
     timings = {"spectrogram": 0.0, "factorization": 0.0, "tracking": 0.0}
     hop = HOP_LENGTH
     n_frames = 1 + len(y) // hop
@@ -204,14 +220,22 @@ def transcribe_long(
         pitches = np.union1d(base_pitches, part[(part >= 21) & (part <= 108)])
 
     def prior(block_times: np.ndarray, rows: np.ndarray):
-        """Mask and onset thresholds of the part for these frames (informed mode)."""
+        """Mask and onset thresholds of the part for these frames (informed mode), as in
+        :func:`takescribe.informed.informed_transcription`."""
         if reference is None:
             return None, settings.onset_threshold
         mask = score_mask(reference, alignment, pitches, block_times, tolerance=INFORMED_DEFAULTS["tolerance"],
                           floor=INFORMED_DEFAULTS["floor"])[rows]
-        thresholds = np.where(mask >= 1.0, settings.onset_threshold,
+        thresholds = np.where(mask >= 1.0, settings.onset_threshold * INFORMED_DEFAULTS["expected_factor"],
                               settings.onset_threshold * INFORMED_DEFAULTS["unexpected_factor"])
         return mask, thresholds
+
+    def expected(block_times: np.ndarray, rows: np.ndarray, **kind) -> np.ndarray | None:
+        """Where the part starts a pitch (``onsets_only``) or repeats one (``repeats_only``)."""
+        if reference is None:
+            return None
+        return score_mask(reference, alignment, pitches, block_times, tolerance=INFORMED_DEFAULTS["tolerance"],
+                          floor=0.0, **kind)[rows] >= 1.0
 
     # spectrograms of pass 1 are kept on disk for pass 2; activations likewise (memory stays flat)
     with tempfile.TemporaryDirectory(prefix="takescribe-blocks-") as folder:
@@ -332,6 +356,8 @@ def transcribe_long(
                     novelty /= np.float32(novelty_scale)
             times = np.arange(first_frame, first_frame + H.shape[1]) * frame_seconds
             _, thresholds = prior(times, rows)
+            starts = expected(times, rows, onsets_only=True)
+            repeats = expected(times, rows, repeats_only=True)
             found = activations_to_notes(
                 H, adapted.pitches, times, onset_threshold=thresholds,
                 offset_threshold=settings.offset_threshold, release_ratio=settings.release_ratio,
@@ -342,7 +368,13 @@ def transcribe_long(
                 reonset_dip=settings.reonset_dip, local_window=settings.local_window,
                 local_floor=settings.local_floor, novelty=novelty, novelty_threshold=settings.novelty_threshold,
                 novelty_snap=settings.novelty_snap,
+                # the part's onsets and repeats, as in takescribe.transcription.transcribe
+                expected_onsets=starts if preset.polyphonic else None,
+                expected_repeats=None if preset.polyphonic else repeats,
+                attack_zones=None if preset.polyphonic else starts,
+                zone_snap=settings.zone_snap, repeat_window=settings.repeat_window,
             )
+            found = suppress_harmonic_ghosts(found, ratio=ghost_ratio, exempt=_exempt(starts, adapted.pitches, times))
             lo = (core_start - 0.5) * frame_seconds if b > 0 else -np.inf
             hi = (core_stop - 0.5) * frame_seconds if b + 1 < len(layout) else np.inf
             notes.extend(n for n in found if lo <= n.onset - settings.onset_shift < hi)

@@ -4,6 +4,7 @@ Usage::
 
     python tests/benchmarks/bench.py [--split tuning|heldout|all] [--json out.json] [--force] [--quick] [--speed]
     python tests/benchmarks/bench.py --engine-only [--json out.json]
+    python tests/benchmarks/bench.py --memory-only [--json out.json]
 
 Accuracy: every piece of the split is transcribed blind and score-informed (with its
 reference MusicXML) through :func:`takescribe.pipeline.transcribe_take`, and scored
@@ -27,9 +28,12 @@ apart as the cold start (librosa's imports and compilation).
     the same size, timed in this run: dense-equivalent (4·F·K·T flops per H-only KL
     iteration) and useful (the flops of the banded tiles the engine actually runs);
 (d) peak resident memory (``resource.getrusage(RUSAGE_SELF).ru_maxrss`` in a fresh
-    subprocess per take length) for blind transcription of 1-, 10- and 60-minute takes.
+    subprocess per take length and mode) for reading from a FLAC file and transcribing
+    1-, 10- and 60-minute takes (the concatenated piano pieces of (a)), blind and
+    score-informed, and the 60-to-10-minute ratio.
 
-``--engine-only`` runs (b) and (c) alone (about a minute), without the accuracy runs.
+``--engine-only`` runs (b) and (c) alone (about a minute), ``--memory-only`` runs (d) alone
+(several minutes), without the accuracy runs.
 
 Nothing here is collected by pytest (the file name has no ``test_`` prefix).
 """
@@ -377,48 +381,63 @@ def speed_engine(n_iter: int = 100, repeats: int = 7) -> dict:
 # ----------------------------------------------------------------------------- memory
 
 _MEMORY_CHILD = r"""
-import json, resource, sys, time, warnings
-import numpy as np
+import json, pickle, resource, sys, time, warnings
 from takescribe.pipeline import load_take, transcribe_take
-minutes = float(sys.argv[1])
-y, sr = load_take(sys.argv[2])
-n = int(minutes * 60 * sr)
-y = np.resize(y, n)  # one float32 copy of the long take, as load_take would return
-before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+minutes, mode, take, part = float(sys.argv[1]), sys.argv[2], sys.argv[3], sys.argv[4]
+reference = pickle.loads(open(part, "rb").read()) if mode == "informed" else None
 t0 = time.perf_counter()
 with warnings.catch_warnings():
     warnings.simplefilter("ignore")
-    result, _ = transcribe_take(y, sr, instrument=0)
+    y, sr = load_take(take)  # the take as the command line reads it (long takes spill to a file)
+    result, _ = transcribe_take(y, sr, instrument=0, reference=reference)
 elapsed = time.perf_counter() - t0
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 hwm = int(next(line for line in open("/proc/self/status") if line.startswith("VmHWM")).split()[1])
-print(json.dumps({"minutes": minutes, "rss_before_kb": before, "peak_rss_kb": peak, "vm_hwm_kb": hwm,
-                  "seconds": elapsed, "audio_mb": y.nbytes / 2**20, "notes": len(result.notes)}))
+print(json.dumps({"minutes": minutes, "mode": mode, "peak_rss_kb": peak, "vm_hwm_kb": hwm, "seconds": elapsed,
+                  "audio_mb": len(y) * 4 / 2**20, "spilled": not y.flags.writeable, "notes": len(result.notes)}))
 """
 
 
 def speed_memory(minutes_list=(1, 10, 60)) -> dict:
+    """Peak RSS of reading and transcribing 1-, 10- and 60-minute takes from a file, blind and informed."""
+    import pickle
+    import tempfile
+
+    import soundfile as sf
+
     out = {}
-    take = CORPUS / "tuning" / "piano_scales.flac"
-    for minutes in minutes_list:
-        # Linux keeps the larger of ru_maxrss and the exec'ing process's peak across execve, so a
-        # child exec'd straight from this (large) process would report our peak: a shell in
-        # between forks the child from a small process.
-        proc = subprocess.run(["/bin/sh", "-c", '"$0" -c "$1" "$2" "$3"; exit $?', sys.executable, _MEMORY_CHILD,
-                               str(minutes), str(take)], capture_output=True, text=True, cwd=ROOT)
-        if proc.returncode != 0:
-            out[f"{minutes}min"] = {"error": proc.stderr.strip().splitlines()[-1:]}
-            print(f"  {minutes} min: failed: {proc.stderr.strip()[-300:]}")
-            continue
-        row = json.loads(proc.stdout.strip().splitlines()[-1])
-        row["peak_rss_mb"] = row["peak_rss_kb"] / 1024  # ru_maxrss is in kilobytes on Linux
-        row["rss_before_mb"] = row["rss_before_kb"] / 1024
-        out[f"{minutes}min"] = row
-        row["vm_hwm_mb"] = row["vm_hwm_kb"] / 1024
-        print(f"  {minutes:3d} min blind: peak RSS {row['peak_rss_mb']:.0f} MB (VmHWM {row['vm_hwm_mb']:.0f} MB;"
-              f" with the take loaded before"
-              f" transcription: {row['rss_before_mb']:.0f} MB, audio {row['audio_mb']:.0f} MB); {row['seconds']:.1f} s",
-              flush=True)
+    with tempfile.TemporaryDirectory(prefix="takescribe-bench-") as folder:
+        for minutes in minutes_list:
+            y, sr, reference = concatenated_take(minutes)
+            take, part = Path(folder) / f"take{minutes}.flac", Path(folder) / f"part{minutes}.pickle"
+            sf.write(take, y, sr, subtype="PCM_16")
+            part.write_bytes(pickle.dumps(reference))
+            del y, reference
+            for mode in ("blind", "informed"):
+                # Linux keeps the larger of ru_maxrss and the exec'ing process's peak across execve, so
+                # a child exec'd straight from this (large) process would report our peak: a shell in
+                # between forks the child from a small process.
+                proc = subprocess.run(["/bin/sh", "-c", '"$0" -c "$1" "$2" "$3" "$4" "$5"; exit $?', sys.executable,
+                                       _MEMORY_CHILD, str(minutes), mode, str(take), str(part)],
+                                      capture_output=True, text=True, cwd=ROOT)
+                key = f"{minutes}min_{mode}"
+                if proc.returncode != 0:
+                    out[key] = {"error": proc.stderr.strip().splitlines()[-1:]}
+                    print(f"  {minutes} min {mode}: failed: {proc.stderr.strip()[-300:]}")
+                    continue
+                row = json.loads(proc.stdout.strip().splitlines()[-1])
+                row["peak_rss_mb"] = row["peak_rss_kb"] / 1024  # ru_maxrss is in kilobytes on Linux
+                row["vm_hwm_mb"] = row["vm_hwm_kb"] / 1024
+                out[key] = row
+                print(f"  {minutes:3d} min {mode:8s}: peak RSS {row['peak_rss_mb']:.0f} MB (VmHWM"
+                      f" {row['vm_hwm_mb']:.0f} MB; audio {row['audio_mb']:.0f} MB"
+                      f"{', kept in a temporary file' if row['spilled'] else ' in memory'}); {row['seconds']:.1f} s",
+                      flush=True)
+    for mode in ("blind", "informed"):
+        ten, hour = out.get(f"10min_{mode}", {}), out.get(f"60min_{mode}", {})
+        if "peak_rss_mb" in ten and "peak_rss_mb" in hour:
+            out[f"ratio_60_to_10_{mode}"] = hour["peak_rss_mb"] / ten["peak_rss_mb"]
+            print(f"  {mode}: 60 min / 10 min peak RSS = {out[f'ratio_60_to_10_{mode}']:.2f}", flush=True)
     return out
 
 
@@ -434,6 +453,8 @@ def main(argv=None) -> int:
     parser.add_argument("--speed", action="store_true", help="add the speed section (several minutes)")
     parser.add_argument("--engine-only", action="store_true",
                         help="run only the engine part of the speed section (engine vs scikit-learn, FLOP rate)")
+    parser.add_argument("--memory-only", action="store_true",
+                        help="run only the peak-memory part of the speed section (several minutes)")
     args = parser.parse_args(argv)
     if args.json:
         from takescribe.errors import OutputError
@@ -445,11 +466,12 @@ def main(argv=None) -> int:
             print(f"bench: {exc}", file=sys.stderr)
             return 4
 
-    if args.engine_only:
-        print(f"speed: engine; {os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.1f}", flush=True)
+    if args.engine_only or args.memory_only:
+        part = "engine" if args.engine_only else "memory"
+        print(f"speed: {part}; {os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.1f}", flush=True)
         report = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
                               "load_average": os.getloadavg(), "platform": platform.platform()},
-                  "speed": {"engine": speed_engine()}}
+                  "speed": {part: speed_engine() if args.engine_only else speed_memory()}}
         report["machine"]["load_average_end"] = os.getloadavg()
         if args.json:
             from takescribe.safeio import write_text
