@@ -246,6 +246,7 @@ def activations_to_notes(
     repeat_window: float = 0.25,
     attack_zones: np.ndarray | None = None,
     zone_snap: float = 0.3,
+    max_rise: float | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -304,6 +305,11 @@ def activations_to_notes(
         none, so it stays one note (the score is a prior, not a cage).
     repeat_window : float
         Seconds on each side of a valley searched for the swells around it.
+    max_rise : float, optional
+        Seconds. For struck and plucked instruments: a note whose activation takes longer
+        than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
+        it is a slow swell of shared partials (a held chord's energy drifting to this
+        template, or the foot of the next stroke), not a new stroke. None: no such test.
     attack_zones : np.ndarray of bool (n_pitches, n_frames), optional
         Where the part starts each pitch (score-informed mode, melodic instruments). With
         ``novelty``, a note whose rise has no novelty peak of ``novelty_snap`` just before it
@@ -399,6 +405,11 @@ def activations_to_notes(
                         window = novelty[k, first: onset_frame + 2] * attack_zones[k, first: onset_frame + 2]
                         if len(window) and window.max() >= zone_snap:
                             onset_frame = first + int(np.argmax(window))
+                if max_rise is not None and on not in placed:
+                    # a stroke reaches most of its peak at once; a slow swell is no stroke
+                    reached = int(np.argmax(part[: peak_i + 1] >= 0.8 * peak))
+                    if frame_times[on + reached] - frame_times[min(onset_frame, on + reached)] > max_rise:
+                        continue
                 # release: first frame after the peak below release_ratio * peak
                 after = part[peak_i:]
                 low = np.nonzero(after < release_ratio * peak)[0]
