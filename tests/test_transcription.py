@@ -133,6 +133,28 @@ def test_expected_repeat_keeps_a_held_note_whole():
     assert len(_track(H, pitches, times, zone=(150, 180))) == 1
 
 
+def test_a_deep_valley_splits_a_melodic_note_without_the_part():
+    # Without a part, only a deep valley (down to valley_dip of the swells around it) is a new
+    # stroke; a shallower one (a held note's bow-pressure change) keeps the note whole, and the
+    # part's expected repeat still eases the split down to reonset_dip.
+    s = MELODIC_SETTINGS
+    for valley, expected in ((0.3, 2), (0.6, 1)):
+        H, pitches, times = _strokes(valley)
+        notes = activations_to_notes(H, pitches, times, onset_threshold=s.onset_threshold,
+                                     offset_threshold=s.offset_threshold, release_ratio=s.release_ratio,
+                                     reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip, polyphonic=False,
+                                     valley_dip=s.valley_dip)
+        assert len(notes) == expected, valley
+    H, pitches, times = _strokes(0.42)  # 0.47 of the swell after it: only with the part's hint
+    zone = np.zeros(H.shape, dtype=bool)
+    zone[:, 90:130] = True
+    common = dict(onset_threshold=s.onset_threshold, offset_threshold=s.offset_threshold,
+                  release_ratio=s.release_ratio, reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip,
+                  polyphonic=False, valley_dip=s.valley_dip)
+    assert len(activations_to_notes(H, pitches, times, **common)) == 1
+    assert len(activations_to_notes(H, pitches, times, expected_repeats=zone, **common)) == 2
+
+
 def test_expected_repeats_must_match_the_activations():
     H, pitches, times = _strokes(0.3)
     with pytest.raises(InputError, match="expected_repeats"):

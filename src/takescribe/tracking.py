@@ -126,7 +126,8 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
     return N / scale if scale > 0 else N
 
 
-def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: float, width: int) -> list[int]:
+def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "float | np.ndarray",
+                    width: int) -> list[int]:
     """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
 
     A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
@@ -165,7 +166,7 @@ def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: fl
 def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
                   novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
                   relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
-                  repeat_frames: int = 0) -> tuple[list[int], set[int]]:
+                  repeat_frames: int = 0, valley_dip: float | None = None) -> tuple[list[int], set[int]]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``.
 
     Also returns the onsets found at repeat valleys: their time is already placed.
@@ -173,12 +174,17 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     if stop - start <= 2 * frames:
         return [start], set()
     onsets = _rise_onsets(a, start, stop, rise, frames, dip, novelty, novelty_threshold, relaxed)
-    if repeats is None or repeat_frames < 1:
+    if (repeats is None and valley_dip is None) or repeat_frames < 1:
         return onsets, set()
     # where the part repeats this pitch, a swell-valley-swell is a new bow stroke or breath
-    # even when the rise after it is too slow for the rise test above
-    extra = [start + v for v in _repeat_valleys(a[start:stop], repeats[start:stop], rise[start:stop], dip,
-                                                repeat_frames)]
+    # even when the rise after it is too slow for the rise test above; elsewhere (and
+    # without a part) only a deeper valley, down to ``valley_dip``, counts
+    if valley_dip is None:
+        zone, depth = repeats[start:stop], dip
+    else:
+        zone = np.ones(stop - start, dtype=bool)
+        depth = np.full(stop - start, valley_dip) if repeats is None else np.where(repeats[start:stop], dip, valley_dip)
+    extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames)]
     extra = [v for v in extra if v - start >= 2 * frames
              and not any(-2 * frames <= o - v <= repeat_frames for o in onsets)]
     return sorted(onsets + extra), set(extra)
@@ -247,6 +253,7 @@ def activations_to_notes(
     attack_zones: np.ndarray | None = None,
     zone_snap: float = 0.3,
     max_rise: float | None = None,
+    valley_dip: float | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -305,6 +312,12 @@ def activations_to_notes(
         none, so it stays one note (the score is a prior, not a cage).
     repeat_window : float
         Seconds on each side of a valley searched for the swells around it.
+    valley_dip : float, optional
+        Melodic instruments: anywhere (part or no part), a valley between two swells that
+        falls to at most this fraction of the highest activation within ``repeat_window``
+        on each side starts a new note: a bow change or breath between two notes of the same
+        pitch. Deeper than ``reonset_dip``, which serves where the part expects a repeat.
+        None: only where the part expects a repeat.
     max_rise : float, optional
         Seconds. For struck and plucked instruments: a note whose activation takes longer
         than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
@@ -372,7 +385,8 @@ def activations_to_notes(
             onsets, placed = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
                                    None if novelty is None else novelty[k], novelty_threshold,
                                    None if expected_onsets is None else expected_onsets[k],
-                                   None if expected_repeats is None else expected_repeats[k], repeat_frames)
+                                   None if expected_repeats is None else expected_repeats[k], repeat_frames,
+                                   None if polyphonic else valley_dip)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]

@@ -86,6 +86,7 @@ class TranscriptionSettings:
     repeat_window: float = 0.25
     zone_snap: float = 0.3
     max_rise: float | None = None
+    valley_dip: float | None = None
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
@@ -100,7 +101,8 @@ POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.3, min_duration=0.
                                             use_novelty=False, ghost_ratio=0.7, max_rise=0.2)
 MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06, release_ratio=0.2,
                                          reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
-                                         use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5)
+                                         use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5,
+                                         valley_dip=0.45)
 
 
 def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
@@ -296,6 +298,7 @@ def transcribe(
         zone_snap=settings.zone_snap,
         repeat_window=settings.repeat_window,
         max_rise=settings.max_rise,
+        valley_dip=settings.valley_dip,
     )
     exempt = None
     if ghost_exempt is not None:

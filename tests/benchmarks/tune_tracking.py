@@ -67,7 +67,7 @@ def main(argv=None) -> int:
                 min_duration=s.min_duration, smoothing=s.smoothing, polyphonic=preset.polyphonic,
                 onset_shift=s.onset_shift, attack_fraction=s.attack_fraction, reonset_dip=s.reonset_dip,
                 local_window=s.local_window, local_floor=s.local_floor, novelty=nov if s.use_novelty else None,
-                novelty_threshold=s.novelty_threshold, novelty_snap=s.novelty_snap, max_rise=s.max_rise)
+                novelty_threshold=s.novelty_threshold, novelty_snap=s.novelty_snap, max_rise=s.max_rise, valley_dip=s.valley_dip)
             notes = suppress_harmonic_ghosts(notes, ratio=s.ghost_ratio)
             import warnings
             with warnings.catch_warnings():
