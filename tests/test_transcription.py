@@ -67,6 +67,17 @@ def test_heldout_onset_f_measure_floor(name):
     assert f >= MEASURED[name] - 0.05, f"{name}: onset F-measure {f:.3f}"
 
 
+@pytest.mark.parametrize("name", ["melody_clarinet_tune", "adverse_reverb_clarinet_tune", "melody_violin_bwv153_1"])
+def test_melodic_drafts_play_one_note_at_a_time(name):
+    # Common practice, no source: a clarinet or a violin line (no double stops) sounds one note
+    # at a time, so the draft's notes never overlap (a notation editor would otherwise read
+    # two voices), and the reverberant take must not stretch one note into the next.
+    est, _ = _transcribe(name)
+    assert len(est) > 10
+    for a, b in zip(est, est[1:]):
+        assert a.offset <= b.onset + 1e-9, (a, b)
+
+
 def test_category_targets_on_heldout():
     # the targets: >= 0.80 on polyphonic piano, >= 0.95 on monophonic melodies of at
     # least four instruments (two more melodic instruments reach it on the tuning split:

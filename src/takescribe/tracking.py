@@ -33,6 +33,8 @@ one number: score-informed tracking uses it for its dual threshold.
 
 from __future__ import annotations
 
+import dataclasses
+
 import librosa
 import numpy as np
 import scipy.ndimage
@@ -436,7 +438,15 @@ def activations_to_notes(
                 loudness = float(Hn[k, on + peak_i])
                 velocity = int(np.clip(round(127 * np.sqrt(min(loudness, 1.0))), 1, 127))
                 notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), int(pitches[k]), velocity))
-    return sort_notes(notes)
+    notes = sort_notes(notes)
+    if not polyphonic:
+        # one note at a time: a note ends where the next one starts (an onset placed on the
+        # attack of the next note can fall before the decoded end of this one)
+        for i in range(len(notes) - 1):
+            nxt = notes[i + 1].onset
+            if notes[i].onset < nxt < notes[i].offset:
+                notes[i] = dataclasses.replace(notes[i], offset=max(nxt, notes[i].onset + min_duration))
+    return notes
 
 
 def suppress_harmonic_ghosts(
