@@ -174,12 +174,17 @@ def _embedded_audio(take_path: str | os.PathLike) -> tuple[str, bytes]:
         return mime, path.read_bytes()
     import soundfile as sf
 
-    from .audio import load_audio
+    from .audio import load_audio, release_samples
 
-    y, sr = load_audio(path, sr=16000)
+    # a long take stays in a temporary file and is encoded block by block (flat memory)
+    y, sr = load_audio(path, sr=16000, spill_seconds=150.0)
     buffer = io.BytesIO()
     try:
-        sf.write(buffer, y, sr, format="OGG", subtype="VORBIS")
+        with sf.SoundFile(buffer, "w", samplerate=sr, channels=1, format="OGG", subtype="VORBIS") as out:
+            step = 60 * sr
+            for first in range(0, len(y), step):
+                out.write(np.asarray(y[first:first + step]))
+                release_samples(y, first, first + step)
         return "audio/ogg", buffer.getvalue()
     except Exception:  # noqa: BLE001 - libsndfile without Vorbis: 8 kHz 16-bit WAV instead
         buffer = io.BytesIO()
