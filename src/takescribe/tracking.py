@@ -19,11 +19,14 @@ Method
    this splits repeated notes of one pitch. Where the score-informed mode says the
    part repeats the pitch (``expected_repeats``), a valley between two swells also
    splits the region: bowed and blown legato repeats rise too slowly for the rise test.
+   For melodic instruments a deeper valley (``valley_dip``) splits it anywhere.
 5. A note's onset is placed where its rise crosses ``attack_fraction`` of its
    peak (or at a novelty peak of its pitch just before, or, where the part starts
    the pitch, inside that zone: ``attack_zones``); it ends where the region ends, at the next onset of the same pitch, or
    where the activation falls below ``release_ratio`` of the note's own peak,
-   whichever comes first. Notes shorter than ``min_duration`` are dropped.
+   whichever comes first. Notes shorter than ``min_duration`` are dropped, and so are
+   struck or plucked notes without an attack (``max_rise``: slower than that from
+   onset to 80 % of the peak). A melodic note ends at the latest where the next starts.
 6. Velocity is ``round(127 · sqrt(peak / reference))`` clipped to 1..127: a
    loudness-like compression of the activation peak (our own mapping, no source).
 
