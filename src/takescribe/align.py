@@ -88,7 +88,7 @@ import scipy.fft
 import scipy.sparse
 from scipy.ndimage import maximum_filter1d
 
-from .audio import release_samples, validate_audio
+from .audio import frames_segment, release_samples, validate_audio
 from .score import Reference, validate_reference
 
 __all__ = [
@@ -290,18 +290,10 @@ def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block:
     fb_sparse = scipy.sparse.csr_matrix(fb[:, :used])
     window = np.hanning(n_fft + 1)[:-1].astype(np.float32)
     n_frames = 1 + len(y) // hop_length
-    half = n_fft // 2
     out = np.empty((fb.shape[0], n_frames), dtype=np.float32)
     for start in range(0, n_frames, block):
         stop = min(start + block, n_frames)
-        # samples of frames [start, stop), zero-padded beyond the take (centred frames)
-        first = start * hop_length - half
-        length = (stop - start - 1) * hop_length + n_fft
-        segment = np.zeros(length, dtype=np.float32)
-        lo, hi = max(first, 0), min(first + length, len(y))
-        if hi > lo:
-            segment[lo - first: hi - first] = y[lo:hi]
-        release_samples(y, 0, max(lo, 0))  # a take spilled to a file leaves memory behind us
+        segment = frames_segment(y, start, stop, hop_length=hop_length, n_fft=n_fft)
         frames = np.lib.stride_tricks.sliding_window_view(segment, n_fft)[::hop_length]
         spec = scipy.fft.rfft(frames * window, axis=1, workers=-1)[:, :used]
         power = np.square(spec.real) + np.square(spec.imag)

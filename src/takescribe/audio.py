@@ -64,6 +64,7 @@ __all__ = [
     "audio_info",
     "load_audio",
     "release_samples",
+    "frames_segment",
     "max_resolvable_pitch",
     "validate_audio",
     "MIN_DURATION",
@@ -356,6 +357,23 @@ def _checked(path: Path, y, info: AudioInfo, stats, *, n_wanted: int, sr: int) -
     if offset:
         y -= np.float32(offset)
     return y, sr
+
+
+def frames_segment(y: np.ndarray, start: int, stop: int, *, hop_length: int, n_fft: int) -> np.ndarray:
+    """The samples under centred frames ``[start, stop)`` of ``y`` (frame ``j`` centred on
+    sample ``j * hop_length``), zero beyond the take as librosa's ``center=True`` pads.
+
+    Framing the result with ``center=False`` gives exactly those frames; samples before
+    the segment are released (:func:`release_samples`), so walking a spilled take forward
+    in segments keeps memory flat.
+    """
+    first = start * hop_length - n_fft // 2
+    segment = np.zeros((stop - start - 1) * hop_length + n_fft, dtype=np.float32)
+    lo, hi = max(first, 0), min(first + len(segment), len(y))
+    if hi > lo:
+        segment[lo - first: hi - first] = y[lo:hi]
+    release_samples(y, 0, lo)
+    return segment
 
 
 def release_samples(y: np.ndarray, start: int = 0, stop: int | None = None) -> None:

@@ -63,7 +63,7 @@ from .nmf import decompose
 from .notes import Note, sort_notes
 from .spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
 from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
-from .transcription import Transcription, TranscriptionSettings, noise_templates, settings_for
+from .transcription import Transcription, TranscriptionSettings, noise_templates, onset_exemption, settings_for
 
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
 
@@ -108,20 +108,6 @@ def _frame_start(V: np.ndarray, W_colsum_mean: float, K: int) -> np.ndarray:
     """A frame-local start for H: each frame's energy spread evenly over the K templates."""
     energy = V.sum(axis=0, dtype=np.float64) / (K * max(W_colsum_mean, 1e-12))
     return np.repeat(np.maximum(energy, 1e-6).astype(V.dtype)[None, :], K, axis=0)
-
-
-def _exempt(starts: np.ndarray | None, pitches: np.ndarray, times: np.ndarray):
-    """Notes the part starts there are never dropped as harmonic ghosts (None: no part)."""
-    if starts is None:
-        return None
-    rows = {int(p): k for k, p in enumerate(pitches)}
-
-    def exempt(note: Note) -> bool:
-        k = rows.get(note.pitch)
-        f = min(int(np.searchsorted(times, note.onset)), len(times) - 1)
-        return k is not None and bool(starts[k, f])
-
-    return exempt
 
 
 def _novelty(V: np.ndarray, W: np.ndarray, peak: float, *, compression: float = 100.0) -> np.ndarray:
@@ -375,7 +361,7 @@ def transcribe_long(
                 zone_snap=settings.zone_snap, repeat_window=settings.repeat_window, max_rise=settings.max_rise,
                 valley_dip=settings.valley_dip,
             )
-            found = suppress_harmonic_ghosts(found, ratio=ghost_ratio, exempt=_exempt(starts, adapted.pitches, times))
+            found = suppress_harmonic_ghosts(found, ratio=ghost_ratio, exempt=onset_exemption(starts, adapted.pitches, times))
             lo = (core_start - 0.5) * frame_seconds if b > 0 else -np.inf
             hi = (core_stop - 0.5) * frame_seconds if b + 1 < len(layout) else np.inf
             notes.extend(n for n in found if lo <= n.onset - settings.onset_shift < hi)

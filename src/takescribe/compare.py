@@ -650,19 +650,22 @@ class _TempoModel:
     def segment_at(self, s: float) -> int:
         return int(np.searchsorted(np.asarray(self.segment_starts), s + 1e-9, side="right")) - 1
 
-    def fit(self, s: float, *, exclude_group: int | None = None, segment: int | None = None) -> tuple[float, float] | None:
-        """Local line (slope, intercept) of take time against score time around ``s``."""
+    def _around(self, s: float, exclude_group: int | None, segment: int | None = None):
+        """Groups of the segment of ``s`` (or ``segment``): up to ``neighbours`` before it, at it, after it."""
         seg = self.segment_at(s) if segment is None else segment
         members = np.flatnonzero(self.segment_of_group == seg)
         if exclude_group is not None:
             members = members[members != exclude_group]
-        if members.size == 0:
-            return None
         gs = self.group_scores[members]
-        before = members[gs < s - 1e-9][-self.neighbours:]
-        after = members[gs > s + 1e-9][: self.neighbours]
-        at = members[np.abs(gs - s) <= 1e-9]
+        return (members[gs < s - 1e-9][-self.neighbours:], members[np.abs(gs - s) <= 1e-9],
+                members[gs > s + 1e-9][: self.neighbours])
+
+    def fit(self, s: float, *, exclude_group: int | None = None, segment: int | None = None) -> tuple[float, float] | None:
+        """Local line (slope, intercept) of take time against score time around ``s``."""
+        before, at, after = self._around(s, exclude_group, segment)
         chosen = np.concatenate([before, at, after])
+        if chosen.size == 0:
+            return None
         return _robust_line(self.group_scores[chosen], self.group_takes[chosen], self.default_slope)
 
     def predict(self, s: float, *, exclude_group: int | None = None, fallback: float | None = None) -> float:
@@ -679,16 +682,10 @@ class _TempoModel:
         its slope grows with the distance; this second reading keeps the intercept of the
         same notes but the overall pace. None away from an edge.
         """
-        seg = self.segment_at(s)
-        members = np.flatnonzero(self.segment_of_group == seg)
-        if exclude_group is not None:
-            members = members[members != exclude_group]
-        gs = self.group_scores[members]
-        before = members[gs < s - 1e-9][-self.neighbours:]
-        after = members[gs > s + 1e-9][: self.neighbours]
-        if members.size == 0 or (before.size and after.size):
-            return None
+        before, at, after = self._around(s, exclude_group)
         chosen = np.concatenate([before, after])
+        if chosen.size == 0 or (before.size and after.size):
+            return None
         x, y = self.group_scores[chosen], self.group_takes[chosen]
         return float(self.default_slope * s + np.median(y - self.default_slope * x))
 

@@ -691,22 +691,16 @@ def onset_envelope(y: np.ndarray, sr: int, *, hop_length: int = 512, n_fft: int 
     """
     import librosa
 
-    from .audio import release_samples
+    from .audio import frames_segment, release_samples
 
     n_frames = 1 + len(y) // hop_length
     if n_frames <= block_frames:
         return librosa.onset.onset_strength(y=np.asarray(y, dtype=np.float32), sr=sr, hop_length=hop_length,
                                             n_fft=n_fft)
-    half = n_fft // 2
 
     def mel_power(a: int, b: int) -> np.ndarray:
         """Mel power of centred frames [a, b) (zeros beyond the take, as librosa pads)."""
-        first = a * hop_length - half
-        segment = np.zeros((b - a - 1) * hop_length + n_fft, dtype=np.float32)
-        lo, hi = max(first, 0), min(first + len(segment), len(y))
-        if hi > lo:
-            segment[lo - first: hi - first] = y[lo:hi]
-        release_samples(y, 0, lo)
+        segment = frames_segment(y, a, b, hop_length=hop_length, n_fft=n_fft)
         return librosa.feature.melspectrogram(y=segment, sr=sr, n_fft=n_fft, hop_length=hop_length, center=False)
 
     edges = list(range(0, n_frames, block_frames)) + [n_frames]

@@ -24,7 +24,7 @@ from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
 from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 
 __all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "noise_templates", "DEFAULT_SETTINGS",
-           "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram"]
+           "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram", "onset_exemption"]
 
 
 @dataclass(frozen=True)
@@ -103,6 +103,21 @@ MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06,
                                          reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
                                          use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5,
                                          valley_dip=0.45)
+
+
+def onset_exemption(starts: np.ndarray | None, pitches: np.ndarray, frame_times: np.ndarray):
+    """``exempt`` for :func:`takescribe.tracking.suppress_harmonic_ghosts`: notes starting where
+    ``starts`` (n_pitches, n_frames) is True (the part starts that pitch) are kept. None without a part."""
+    if starts is None:
+        return None
+    rows = {int(p): k for k, p in enumerate(pitches)}
+
+    def exempt(note: Note) -> bool:
+        k = rows.get(note.pitch)
+        f = min(int(np.searchsorted(frame_times, note.onset)), len(frame_times) - 1)
+        return k is not None and bool(starts[k, f])
+
+    return exempt
 
 
 def settings_for(instrument: "str | int | Instrument") -> TranscriptionSettings:
@@ -300,16 +315,9 @@ def transcribe(
         max_rise=settings.max_rise,
         valley_dip=settings.valley_dip,
     )
-    exempt = None
-    if ghost_exempt is not None:
-        rows = {int(p): k for k, p in enumerate(final_dictionary.pitches)}
-        times = spectrogram.frame_times
-
-        def exempt(note):
-            k = rows.get(note.pitch)
-            f = min(int(np.searchsorted(times, note.onset)), len(times) - 1)
-            return k is not None and bool(ghost_exempt[k, f])
-    notes = suppress_harmonic_ghosts(notes, ratio=settings.ghost_ratio, exempt=exempt)
+    notes = suppress_harmonic_ghosts(notes, ratio=settings.ghost_ratio,
+                                     exempt=onset_exemption(ghost_exempt, final_dictionary.pitches,
+                                                            spectrogram.frame_times))
     timings["tracking"] = time.perf_counter() - t0
     return Transcription(notes, spectrogram, final_dictionary, initial, H, first.H[:K], preset, timings)
 
