@@ -104,9 +104,9 @@ def test_our_scores_equal_mir_eval_on_a_real_transcription():
 # swells like two bow strokes. The rise after the valley (0.03 per frame) is too slow for the
 # rise-after-dip test, so without the part's hint the two strokes stay one note.
 
-def _strokes(valley: float, *, n_frames: int = 220):
+def _strokes(valley: float, *, n_frames: int = 220, second: float = 0.9):
     times = np.arange(n_frames) * 0.01
-    knots = [(0, 0.0), (10, 0.0), (30, 1.0), (95, 1.0), (110, valley), (130, 0.9), (190, 0.9), (200, 0.0),
+    knots = [(0, 0.0), (10, 0.0), (30, 1.0), (95, 1.0), (110, valley), (130, second), (190, second), (200, 0.0),
              (n_frames - 1, 0.0)]
     H = np.interp(np.arange(n_frames), *zip(*knots))[None, :]
     return H, np.array([50]), times
@@ -164,6 +164,26 @@ def test_a_deep_valley_splits_a_melodic_note_without_the_part():
                   polyphonic=False, valley_dip=s.valley_dip)
     assert len(activations_to_notes(H, pitches, times, **common)) == 1
     assert len(activations_to_notes(H, pitches, times, expected_repeats=zone, **common)) == 2
+
+
+def test_a_reattack_at_full_strength_splits_a_shallow_valley_where_the_part_repeats():
+    # A tongued or re-bowed repeat dips only a little but comes back at full strength; the
+    # modulation of a held note dips as much and comes back lower. Only the first is split,
+    # and only where the part repeats the pitch (repeat_dip, MELODIC_SETTINGS).
+    s = MELODIC_SETTINGS
+    assert s.reonset_dip < 0.65 <= s.repeat_dip
+    common = dict(onset_threshold=s.onset_threshold, offset_threshold=s.offset_threshold,
+                  release_ratio=s.release_ratio, reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip,
+                  polyphonic=False, valley_dip=s.valley_dip, repeat_dip=s.repeat_dip)
+    zone = np.zeros((1, 220), dtype=bool)
+    zone[:, 90:130] = True
+    H, pitches, times = _strokes(0.65, second=1.0)
+    notes = activations_to_notes(H, pitches, times, expected_repeats=zone, **common)
+    assert len(notes) == 2
+    assert 0.95 <= notes[1].onset <= 1.10  # between the fall's start and the valley's floor
+    assert len(activations_to_notes(H, pitches, times, **common)) == 1  # no written repeat: one note
+    H, pitches, times = _strokes(0.65, second=0.9)  # comes back lower: a held note's modulation
+    assert len(activations_to_notes(H, pitches, times, expected_repeats=zone, **common)) == 1
 
 
 def test_expected_repeats_must_match_the_activations():

@@ -132,14 +132,17 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
 
 
 def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "float | np.ndarray",
-                    width: int) -> list[int]:
+                    width: int, reattack_dip: "float | np.ndarray | None" = None) -> list[int]:
     """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
 
     A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
     the highest activation within ``width`` frames before it *and* within ``width`` frames
-    after it, and the swell after it rises by at least ``rise``. Of valleys closer than
-    ``width`` frames only the deepest is kept. Returns, for each valley, the frame where
-    the fall into it is half-way down (the new note's start).
+    after it, and the swell after it rises by at least ``rise``. A shallower valley, down to
+    ``reattack_dip`` only, qualifies when the swell after it is at least as high as the one
+    before it (a new stroke or breath comes back at full strength; the slow modulation of a
+    held note sags and comes back lower). Of valleys closer than
+    ``width`` frames only the deepest is kept. Returns, for each valley, the new note's
+    start: half-way between the frame where the fall into it is half-way down and its floor.
     """
     n = len(seg)
     if n < 3 or width < 1 or not zone[1:-1].any():
@@ -151,6 +154,8 @@ def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "f
     minimum = np.zeros(n, dtype=bool)
     minimum[1:-1] = (seg[1:-1] < seg[:-2]) & (seg[1:-1] <= seg[2:])
     ok = minimum & zone & (seg <= dip * before) & (seg <= dip * after) & (after - seg >= rise)
+    if reattack_dip is not None:
+        ok |= minimum & zone & (seg <= reattack_dip * before) & (after >= before) & (after - seg >= rise)
     valleys: list[int] = []
     for c in np.nonzero(ok)[0]:
         if valleys and c - valleys[-1] < width:
@@ -158,20 +163,26 @@ def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "f
                 valleys[-1] = int(c)
             continue
         valleys.append(int(c))
-    # the new note starts during the fall into the valley (the old stroke fades while the
-    # new one builds up): place it where the fall is half-way down from the swell before
+    # the new note starts between the old one's fading and the valley's floor: a bowed
+    # stroke builds up while the old one fades (its start lies early in the fall), a blown or
+    # tongued repeat starts at the floor after a short gap. Place it half-way between the
+    # frame where the fall is half-way down from the swell before and the floor (on the
+    # tuning split: the floor alone put slow bow changes 60 ms late, the fall alone put
+    # tongued repeats 60 ms early)
     starts = []
     for c in valleys:
         half = 0.5 * (seg[c] + before[c])
         high = np.nonzero(seg[max(c - width, 0): c] > half)[0]
-        starts.append(max(c - width, 0) + int(high[-1]) + 1 if len(high) else c)
+        fall = max(c - width, 0) + int(high[-1]) + 1 if len(high) else c
+        starts.append((fall + c + 1) // 2)
     return starts
 
 
 def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
                   novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
                   relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
-                  repeat_frames: int = 0, valley_dip: float | None = None) -> tuple[list[int], set[int]]:
+                  repeat_frames: int = 0, valley_dip: float | None = None,
+                  repeat_dip: float | None = None) -> tuple[list[int], set[int]]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``.
 
     Also returns the onsets found at repeat valleys: their time is already placed.
@@ -184,12 +195,18 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     # where the part repeats this pitch, a swell-valley-swell is a new bow stroke or breath
     # even when the rise after it is too slow for the rise test above; elsewhere (and
     # without a part) only a deeper valley, down to ``valley_dip``, counts
+    reattack = None
     if valley_dip is None:
         zone, depth = repeats[start:stop], dip
     else:
         zone = np.ones(stop - start, dtype=bool)
         depth = np.full(stop - start, valley_dip) if repeats is None else np.where(repeats[start:stop], dip, valley_dip)
-    extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames)]
+    if repeat_dip is not None and repeats is not None:
+        # where the part repeats the pitch, a shallower valley that the next swell climbs out
+        # of at full strength is a re-attack too
+        reattack = np.where(repeats[start:stop], repeat_dip, 0.0)
+    extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames,
+                                                reattack)]
     extra = [v for v in extra if v - start >= 2 * frames
              and not any(-2 * frames <= o - v <= repeat_frames for o in onsets)]
     return sorted(onsets + extra), set(extra)
@@ -259,6 +276,7 @@ def activations_to_notes(
     zone_snap: float = 0.3,
     max_rise: float | None = None,
     valley_dip: float | None = None,
+    repeat_dip: float | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -323,6 +341,12 @@ def activations_to_notes(
         on each side starts a new note: a bow change or breath between two notes of the same
         pitch. Deeper than ``reonset_dip``, which serves where the part expects a repeat.
         None: only where the part expects a repeat.
+    repeat_dip : float, optional
+        Where ``expected_repeats`` is True, a shallower valley, down to this fraction of the
+        swell before it only, also starts a new note when the swell after it climbs at least
+        as high as the one before: a tongued or re-bowed repeat comes back at full strength,
+        while the slow modulation of a note held through the written repeat comes back
+        lower. None: only the ``reonset_dip`` valleys.
     max_rise : float, optional
         Seconds. For struck and plucked instruments: a note whose activation takes longer
         than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
@@ -391,7 +415,7 @@ def activations_to_notes(
                                    None if novelty is None else novelty[k], novelty_threshold,
                                    None if expected_onsets is None else expected_onsets[k],
                                    None if expected_repeats is None else expected_repeats[k], repeat_frames,
-                                   None if polyphonic else valley_dip)
+                                   None if polyphonic else valley_dip, repeat_dip)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
