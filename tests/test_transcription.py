@@ -186,6 +186,22 @@ def test_a_reattack_at_full_strength_splits_a_shallow_valley_where_the_part_repe
     assert len(activations_to_notes(H, pitches, times, expected_repeats=zone, **common)) == 1
 
 
+def test_a_rise_in_two_stages_is_one_note_and_a_rise_after_a_fall_is_two():
+    # Invented activations (our own construction): a bowed note whose attack comes in two
+    # stages (bow noise, then the string speaking) doubles its level within a few frames
+    # without falling first; the rise-after-dip test alone splits it, min_fall keeps it whole.
+    s = MELODIC_SETTINGS
+    times = np.arange(220) * 0.01
+    common = dict(onset_threshold=s.onset_threshold, offset_threshold=s.offset_threshold,
+                  release_ratio=s.release_ratio, reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip,
+                  polyphonic=False)
+    two_stage = np.interp(np.arange(220), [0, 10, 20, 40, 44, 190, 200, 219], [0, 0, .3, .36, .8, .8, 0, 0])[None]
+    assert len(activations_to_notes(two_stage, np.array([50]), times, **common)) == 2
+    assert len(activations_to_notes(two_stage, np.array([50]), times, min_fall=s.min_fall, **common)) == 1
+    fall_rise = np.interp(np.arange(220), [0, 10, 20, 60, 70, 74, 190, 200, 219], [0, 0, .8, .8, .3, .8, .8, 0, 0])[None]
+    assert len(activations_to_notes(fall_rise, np.array([50]), times, min_fall=s.min_fall, **common)) == 2
+
+
 def test_expected_repeats_must_match_the_activations():
     H, pitches, times = _strokes(0.3)
     with pytest.raises(InputError, match="expected_repeats"):

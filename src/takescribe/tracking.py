@@ -182,14 +182,14 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
                   novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
                   relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
                   repeat_frames: int = 0, valley_dip: float | None = None,
-                  repeat_dip: float | None = None) -> tuple[list[int], set[int]]:
+                  repeat_dip: float | None = None, min_fall: float | None = None) -> tuple[list[int], set[int]]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``.
 
     Also returns the onsets found at repeat valleys: their time is already placed.
     """
     if stop - start <= 2 * frames:
         return [start], set()
-    onsets = _rise_onsets(a, start, stop, rise, frames, dip, novelty, novelty_threshold, relaxed)
+    onsets = _rise_onsets(a, start, stop, rise, frames, dip, novelty, novelty_threshold, relaxed, min_fall)
     if (repeats is None and valley_dip is None) or repeat_frames < 1:
         return onsets, set()
     # where the part repeats this pitch, a swell-valley-swell is a new bow stroke or breath
@@ -213,7 +213,8 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
 
 
 def _rise_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
-                 novelty: np.ndarray | None, novelty_threshold: float, relaxed: np.ndarray | None) -> list[int]:
+                 novelty: np.ndarray | None, novelty_threshold: float, relaxed: np.ndarray | None,
+                 min_fall: float | None = None) -> list[int]:
     """Region start and the rise-after-dip (and novelty) re-onsets inside it."""
     onsets = [start]
     seg = a[start:stop]
@@ -223,6 +224,11 @@ def _rise_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames:
     gain = seg - prev_min
     rise = rise[start:stop]
     ok = (gain >= rise) & (prev_min <= dip * seg)
+    if min_fall is not None:
+        # a rise is a new note only after a fall from the level held before it; a note's own
+        # attack in two stages (bow noise, then the string speaking) rises without one
+        held = np.maximum.accumulate(np.concatenate([np.full(frames + 1, -np.inf), seg]))[: len(seg)]
+        ok &= prev_min <= min_fall * held
     only_relaxed = np.zeros(len(seg), dtype=bool)
     if relaxed is not None:
         # where an onset of this pitch is expected, a smaller rise over a shallower dip will do
@@ -277,6 +283,7 @@ def activations_to_notes(
     max_rise: float | None = None,
     valley_dip: float | None = None,
     repeat_dip: float | None = None,
+    min_fall: float | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -347,6 +354,11 @@ def activations_to_notes(
         as high as the one before: a tongued or re-bowed repeat comes back at full strength,
         while the slow modulation of a note held through the written repeat comes back
         lower. None: only the ``reonset_dip`` valleys.
+    min_fall : float, optional
+        A rise inside a sounding region (the rise-after-dip test) starts a new note only
+        when the activation had fallen to at most this fraction of the highest level it held
+        before the rise: a note whose attack comes in two stages (bow or breath noise, then
+        the tone) rises twice without falling in between. None: no such test.
     max_rise : float, optional
         Seconds. For struck and plucked instruments: a note whose activation takes longer
         than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
@@ -415,7 +427,7 @@ def activations_to_notes(
                                    None if novelty is None else novelty[k], novelty_threshold,
                                    None if expected_onsets is None else expected_onsets[k],
                                    None if expected_repeats is None else expected_repeats[k], repeat_frames,
-                                   None if polyphonic else valley_dip, repeat_dip)
+                                   None if polyphonic else valley_dip, repeat_dip, min_fall)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
