@@ -985,8 +985,8 @@ def compare_notes(
         (a transcription of a piano or plucked take, where the end of a note is the end of
         its audible decay rather than the player's release).
     faint_notes : sequence of Note, optional
-        Notes heard only faintly (below the draft's threshold, where the part expects them;
-        :func:`takescribe.informed.faint_notes`). A part note that would be ``missed`` but has a
+        Notes heard only faintly (below the draft's threshold, where the part expects them,
+        or a struck key played again while it still rings; :func:`takescribe.informed.faint_notes`). A part note that would be ``missed`` but has a
         faint note of its pitch starting within 0.15 s of where it should sound gets the status
         ``"uncertain"`` and no finding: the evidence is too weak to put it in the draft and too
         strong to tell the player it was not played.

@@ -41,8 +41,9 @@ from .dictionary import Dictionary
 from .instruments import Instrument, resolve_instrument
 from .score import Reference, validate_reference
 from .spectrogram import compute_spectrogram
-from .tracking import activations_to_notes
-from .transcription import Transcription, TranscriptionSettings, settings_for, transcribe
+from .notes import Note, sort_notes
+from .tracking import activations_to_notes, pitch_novelty
+from .transcription import Transcription, TranscriptionSettings, normalize_spectrogram, settings_for, transcribe
 
 __all__ = ["score_mask", "informed_transcription", "faint_notes", "INFORMED_DEFAULTS"]
 
@@ -217,6 +218,8 @@ def faint_notes(
     *,
     factor: float = 0.3,
     tolerance: float = INFORMED_DEFAULTS["tolerance"],
+    restrike_level: float = 0.2,
+    restrike_contrast: float = 4.0,
 ) -> list:
     """Notes the part expects that the activations show only faintly.
 
@@ -233,6 +236,15 @@ def faint_notes(
     reference, alignment : the part and its alignment with the take.
     factor : float
         Threshold multiplier (0 < factor <= 1).
+    restrike_level, restrike_contrast : float
+        Struck and plucked instruments only: a key struck again while its previous sound
+        still rings adds little to the activation (the draft keeps one note), but its
+        partials gain energy at once. A peak of the pitch's onset novelty
+        (:func:`takescribe.tracking.pitch_novelty`, scaled to its 99.5th percentile) of at
+        least ``restrike_level`` and ``restrike_contrast`` times the median novelty over the
+        draft note, 0.1 s or more after the note's start, is returned as a faint note too.
+        Other notes' attacks that share partials leave such peaks as well, so this is only
+        evidence against calling a written repeat missed, never a note of the draft.
     """
     if not 0 < factor <= 1:
         raise ValueError(f"factor must be in range (0, 1], got {factor}")
@@ -243,9 +255,33 @@ def faint_notes(
     expected = score_mask(reference, alignment, transcription.dictionary.pitches, times, tolerance=tolerance,
                           floor=0.0, onsets_only=True) >= 1.0
     thresholds = np.where(expected, settings.onset_threshold * factor, np.inf)
-    return activations_to_notes(
+    faint = activations_to_notes(
         transcription.H, transcription.dictionary.pitches, times, onset_threshold=thresholds,
         offset_threshold=settings.offset_threshold * factor, release_ratio=settings.release_ratio,
         reonset_rise=settings.reonset_rise * factor, reonset_dip=0.9, min_duration=0.03,
         polyphonic=transcription.instrument.polyphonic, local_floor=settings.local_floor,
     )
+    if transcription.instrument.decaying:
+        faint += _restrikes(transcription, level=restrike_level, contrast=restrike_contrast)
+    return sort_notes(faint)
+
+
+def _restrikes(transcription: Transcription, *, level: float, contrast: float) -> list[Note]:
+    """Onset-novelty peaks of a pitch inside its own draft notes (see :func:`faint_notes`)."""
+    V, _ = normalize_spectrogram(transcription.spectrogram.V)
+    novelty = pitch_novelty(V, transcription.dictionary.W)
+    times = transcription.spectrogram.frame_times
+    rows = {int(p): k for k, p in enumerate(transcription.dictionary.pitches)}
+    found = []
+    for note in transcription.notes:
+        k = rows.get(note.pitch)
+        if k is None:
+            continue
+        frames = np.nonzero((times >= note.onset + 0.1) & (times < note.offset))[0]
+        if len(frames) < 3:
+            continue
+        seg = novelty[k, frames]
+        floor = max(level, contrast * float(np.median(seg)))
+        peaks = np.nonzero((seg[1:-1] >= seg[:-2]) & (seg[1:-1] > seg[2:]) & (seg[1:-1] >= floor))[0] + 1
+        found += [Note(float(times[frames[i]]), note.offset, note.pitch, note.velocity) for i in peaks]
+    return found
