@@ -158,6 +158,29 @@ def test_gradual_tempo_drift_is_not_lateness():
     assert curve[-1]["beats_per_minute"] == pytest.approx(100 / 1.3, rel=0.05)
 
 
+def test_phrase_rubato_is_not_earliness_but_an_early_note_in_it_is():
+    # Invented take (our own construction): the tempo swells and relaxes by +-12 % over every
+    # six onset groups: in places the take bends away from a straight line through four
+    # groups on each side by more than the 0.1 s tolerance (without the closer reading one
+    # note is reported); a line through two groups on each side follows it.
+    ref = study(n_measures=12)
+    period = 6 * float(np.median(np.diff(np.unique(np.round([n.onset for n in ref.notes], 4)))))
+    take_time = lambda s: s + 0.12 * period / (2 * np.pi) * np.sin(2 * np.pi * s / period)  # noqa: E731
+    played = render(ref, take_time=take_time)
+    knots = np.linspace(0, ref.notes[-1].offset, 4)
+    alignment = FakeAlignment(knots, [take_time(s) for s in knots])
+    result = compare_notes(ref, alignment, played)
+    assert kinds(result)["late"] == 0 and kinds(result)["early"] == 0
+    # one note 0.15 s early in the middle of the rubato is still early
+    line = _single_line(ref)
+    k = line[len(line) // 2]
+    moved = list(played)
+    n = played[k]
+    moved[k] = Note(n.onset - 0.15, n.offset - 0.15, n.pitch)
+    result = compare_notes(ref, alignment, moved)
+    assert [(f.kind, f.reference_index) for f in result.findings] == [("early", k)]
+
+
 def test_faster_take_with_exact_alignment():
     ref = study()
     played = render(ref, take_time=lambda s: 0.8 * s + 1.0)

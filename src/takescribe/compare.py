@@ -29,7 +29,9 @@ Method
    counts as early or late. At the edge of a timing segment (the first or last notes, next
    to a pause) the line is extrapolated from one side, so the note is also read against
    the overall pace through the same neighbours, and only a residual beyond the tolerance
-   in both readings counts.
+   in both readings counts. Likewise every note is read against a closer line (half the
+   neighbours, at least two a side): rubato that swells and relaxes within a phrase bends
+   the take's time line faster than the wider line follows, and it is the player's pulse.
 5. Hesitations: walking through the part, a group that arrives more than
    ``hesitation_threshold`` seconds after the line through the groups before it *and*
    whose delay persists on the next group (the music resumes shifted, rather than one
@@ -650,19 +652,20 @@ class _TempoModel:
     def segment_at(self, s: float) -> int:
         return int(np.searchsorted(np.asarray(self.segment_starts), s + 1e-9, side="right")) - 1
 
-    def _around(self, s: float, exclude_group: int | None, segment: int | None = None):
+    def _around(self, s: float, exclude_group: int | None, segment: int | None = None, neighbours: int | None = None):
         """Groups of the segment of ``s`` (or ``segment``): up to ``neighbours`` before it, at it, after it."""
         seg = self.segment_at(s) if segment is None else segment
+        n = self.neighbours if neighbours is None else neighbours
         members = np.flatnonzero(self.segment_of_group == seg)
         if exclude_group is not None:
             members = members[members != exclude_group]
         gs = self.group_scores[members]
-        return (members[gs < s - 1e-9][-self.neighbours:], members[np.abs(gs - s) <= 1e-9],
-                members[gs > s + 1e-9][: self.neighbours])
+        return (members[gs < s - 1e-9][-n:], members[np.abs(gs - s) <= 1e-9], members[gs > s + 1e-9][:n])
 
-    def fit(self, s: float, *, exclude_group: int | None = None, segment: int | None = None) -> tuple[float, float] | None:
+    def fit(self, s: float, *, exclude_group: int | None = None, segment: int | None = None,
+            neighbours: int | None = None) -> tuple[float, float] | None:
         """Local line (slope, intercept) of take time against score time around ``s``."""
-        before, at, after = self._around(s, exclude_group, segment)
+        before, at, after = self._around(s, exclude_group, segment, neighbours)
         chosen = np.concatenate([before, at, after])
         if chosen.size == 0:
             return None
@@ -673,6 +676,20 @@ class _TempoModel:
         if line is None:
             return float(s * self.default_slope) if fallback is None else float(fallback)
         slope, intercept = line
+        return slope * s + intercept
+
+    def close_prediction(self, s: float, *, exclude_group: int | None = None) -> float | None:
+        """The take time of ``s`` on a line through half as many neighbours (at least two a side).
+
+        Rubato that swells and relaxes within a phrase bends the take's time line faster
+        than the local line follows; a line through the nearest groups follows it. None where
+        it has fewer than two groups on each side (the edges have their own reading).
+        """
+        n = max(2, self.neighbours // 2)
+        before, _, after = self._around(s, exclude_group, neighbours=n)
+        if before.size < 2 or after.size < 2:
+            return None
+        slope, intercept = self.fit(s, exclude_group=exclude_group, neighbours=n)
         return slope * s + intercept
 
     def edge_prediction(self, s: float, *, exclude_group: int | None = None) -> float | None:
@@ -1242,6 +1259,11 @@ def compare_notes(
             edge = model.edge_prediction(float(part.onsets[i]), exclude_group=g)
             if edge is not None and abs(played_on[j] - edge) < abs(residual):
                 residual = float(played_on[j] - edge)
+            # and rubato within a phrase is the player's pulse too: a note is early or late
+            # only if it is so against the closer line as well
+            close = model.close_prediction(float(part.onsets[i]), exclude_group=g)
+            if close is not None and abs(played_on[j] - close) < abs(residual):
+                residual = float(played_on[j] - close)
         name = pitch_name(part.pitches[i])
         common = dict(**pos, expected_pitch=int(part.pitches[i]), played_pitch=int(played_pitch[j]),
                       reference_index=i, played_index=j)
