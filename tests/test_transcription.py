@@ -186,6 +186,25 @@ def test_a_reattack_at_full_strength_splits_a_shallow_valley_where_the_part_repe
     assert len(activations_to_notes(H, pitches, times, expected_repeats=zone, **common)) == 1
 
 
+def test_a_narrow_notch_at_a_written_repeat_is_a_new_note_and_a_wide_swell_is_not():
+    # Invented activations (our own construction), hop 10 ms: a note that comes back lower after
+    # a valley of 0.55 (of the swells on both sides). 40 ms wide at half depth it is the short
+    # gap of a tongued repeat; 200 ms wide it is a held note's swell (notch_width 0.06 s).
+    s = MELODIC_SETTINGS
+    times = np.arange(220) * 0.01
+    zone = np.zeros((1, 220), dtype=bool)
+    zone[:, 90:130] = True
+    common = dict(onset_threshold=s.onset_threshold, offset_threshold=s.offset_threshold,
+                  release_ratio=s.release_ratio, reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip,
+                  polyphonic=False, valley_dip=s.valley_dip, repeat_dip=s.repeat_dip, notch_width=s.notch_width,
+                  expected_repeats=zone)
+    for half_width, expected in ((2, 2), (10, 1)):
+        knots = [(0, 0), (10, 0), (20, 1.0), (110 - 2 * half_width, 1.0), (110, 0.5), (110 + 2 * half_width, 0.9),
+                 (190, 0.9), (200, 0), (219, 0)]
+        H = np.interp(np.arange(220), *zip(*knots))[None]
+        assert len(activations_to_notes(H, np.array([50]), times, **common)) == expected, half_width
+
+
 def test_a_rise_in_two_stages_is_one_note_and_a_rise_after_a_fall_is_two():
     # Invented activations (our own construction): a bowed note whose attack comes in two
     # stages (bow noise, then the string speaking) doubles its level within a few frames

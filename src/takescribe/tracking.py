@@ -132,7 +132,7 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
 
 
 def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "float | np.ndarray",
-                    width: int, reattack_dip: "float | np.ndarray | None" = None) -> list[int]:
+                    width: int, reattack_dip: "float | np.ndarray | None" = None, notch_frames: int = 0) -> list[int]:
     """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
 
     A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
@@ -140,7 +140,9 @@ def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "f
     after it, and the swell after it rises by at least ``rise``. A shallower valley, down to
     ``reattack_dip`` only, qualifies when the swell after it is at least as high as the one
     before it (a new stroke or breath comes back at full strength; the slow modulation of a
-    held note sags and comes back lower). Of valleys closer than
+    held note sags and comes back lower), or when it is that deep on both sides and at most
+    ``notch_frames`` wide at half its depth (the short gap of a tongued repeat; vibrato and
+    bow-pressure swells are wider). Of valleys closer than
     ``width`` frames only the deepest is kept. Returns, for each valley, the new note's
     start: half-way between the frame where the fall into it is half-way down and its floor.
     """
@@ -155,7 +157,20 @@ def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "f
     minimum[1:-1] = (seg[1:-1] < seg[:-2]) & (seg[1:-1] <= seg[2:])
     ok = minimum & zone & (seg <= dip * before) & (seg <= dip * after) & (after - seg >= rise)
     if reattack_dip is not None:
-        ok |= minimum & zone & (seg <= reattack_dip * before) & (after >= before) & (after - seg >= rise)
+        with np.errstate(invalid="ignore"):  # 0 (outside the repeats) times -inf (at an edge): False
+            deep_before, deep_after = seg <= reattack_dip * before, seg <= reattack_dip * after
+        shallow = minimum & zone & deep_before & (after - seg >= rise) & ~ok
+        # the swell after it comes back at full strength ...
+        ok |= shallow & (after >= before)
+        # ... or the valley is that deep on both sides, and narrow: the short gap of a tongued repeat
+        for c in np.nonzero(shallow & deep_after & ~ok)[0] if notch_frames > 0 else ():
+            left_level, right_level = 0.5 * (seg[c] + before[c]), 0.5 * (seg[c] + after[c])
+            left = right = 0
+            while c - left - 1 >= 0 and seg[c - left - 1] < left_level:
+                left += 1
+            while c + right + 1 < n and seg[c + right + 1] < right_level:
+                right += 1
+            ok[c] = left + right + 1 <= notch_frames
     valleys: list[int] = []
     for c in np.nonzero(ok)[0]:
         if valleys and c - valleys[-1] < width:
@@ -182,7 +197,8 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
                   novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
                   relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
                   repeat_frames: int = 0, valley_dip: float | None = None,
-                  repeat_dip: float | None = None, min_fall: float | None = None) -> tuple[list[int], set[int]]:
+                  repeat_dip: float | None = None, min_fall: float | None = None,
+                  notch_frames: int = 0) -> tuple[list[int], set[int]]:
     """Onset frames inside region [start, stop) of one pitch's activation ``a``.
 
     Also returns the onsets found at repeat valleys: their time is already placed.
@@ -206,7 +222,7 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
         # of at full strength is a re-attack too
         reattack = np.where(repeats[start:stop], repeat_dip, 0.0)
     extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames,
-                                                reattack)]
+                                                reattack, notch_frames)]
     extra = [v for v in extra if v - start >= 2 * frames
              and not any(-2 * frames <= o - v <= repeat_frames for o in onsets)]
     return sorted(onsets + extra), set(extra)
@@ -283,6 +299,7 @@ def activations_to_notes(
     max_rise: float | None = None,
     valley_dip: float | None = None,
     repeat_dip: float | None = None,
+    notch_width: float = 0.0,
     min_fall: float | None = None,
 ) -> list[Note]:
     """Turn activations into note events.
@@ -354,6 +371,11 @@ def activations_to_notes(
         as high as the one before: a tongued or re-bowed repeat comes back at full strength,
         while the slow modulation of a note held through the written repeat comes back
         lower. None: only the ``reonset_dip`` valleys.
+    notch_width : float
+        Seconds. Where ``expected_repeats`` is True, a valley down to ``repeat_dip`` of the
+        swells on both sides that is at most this wide at half its depth also starts a new
+        note: the short gap of a tongued or re-bowed repeat, narrower than the swells of
+        vibrato (5-7 Hz) or bow pressure in a held note. 0: no such test.
     min_fall : float, optional
         A rise inside a sounding region (the rise-after-dip test) starts a new note only
         when the activation had fallen to at most this fraction of the highest level it held
@@ -409,6 +431,7 @@ def activations_to_notes(
     end_time = frame_times[-1] + hop
     lookback = max(int(round(0.1 / hop)), 1)
     repeat_frames = max(int(round(repeat_window / hop)), 1)
+    notch_frames = int(round(notch_width / hop)) if notch_width > 0 else 0
     for name, zones in (("expected_repeats", expected_repeats), ("attack_zones", attack_zones)):
         if zones is not None and np.shape(zones) != H.shape:
             raise InputError(f"{name} must have the shape of H {H.shape}, got {np.shape(zones)}")
@@ -427,7 +450,7 @@ def activations_to_notes(
                                    None if novelty is None else novelty[k], novelty_threshold,
                                    None if expected_onsets is None else expected_onsets[k],
                                    None if expected_repeats is None else expected_repeats[k], repeat_frames,
-                                   None if polyphonic else valley_dip, repeat_dip, min_fall)
+                                   None if polyphonic else valley_dip, repeat_dip, min_fall, notch_frames)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]
