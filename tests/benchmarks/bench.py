@@ -3,6 +3,7 @@
 Usage::
 
     python tests/benchmarks/bench.py [--split tuning|heldout|all] [--json out.json] [--force] [--quick] [--speed]
+    python tests/benchmarks/bench.py --corpus /tmp/big --split tuning   # the large corpus (build_corpus.py --large)
     python tests/benchmarks/bench.py --engine-only [--json out.json]
     python tests/benchmarks/bench.py --memory-only [--json out.json]
 
@@ -450,12 +451,22 @@ def main(argv=None) -> int:
     parser.add_argument("--json", help="write the figures to this JSON file")
     parser.add_argument("--force", action="store_true", help="overwrite --json if it exists")
     parser.add_argument("--quick", action="store_true", help="one piece per category")
+    parser.add_argument("--corpus", type=Path, default=None,
+                        help="accuracy on another corpus folder with the same layout, e.g. the large one built by "
+                             "fixtures/build_corpus.py --large --out DIR (extra tuning material)")
     parser.add_argument("--speed", action="store_true", help="add the speed section (several minutes)")
     parser.add_argument("--engine-only", action="store_true",
                         help="run only the engine part of the speed section (engine vs scikit-learn, FLOP rate)")
     parser.add_argument("--memory-only", action="store_true",
                         help="run only the peak-memory part of the speed section (several minutes)")
     args = parser.parse_args(argv)
+    if args.corpus is not None:
+        global CORPUS
+        if not (args.corpus / "index.json").is_file():
+            print(f"bench: {args.corpus} has no index.json (build one with fixtures/build_corpus.py --large --out DIR)",
+                  file=sys.stderr)
+            return 2
+        CORPUS = args.corpus
     if args.json:
         from takescribe.errors import OutputError
         from takescribe.safeio import check_writable
