@@ -32,6 +32,8 @@ Method
    in both readings counts. Likewise every note is read against a closer line (half the
    neighbours, at least two a side): rubato that swells and relaxes within a phrase bends
    the take's time line faster than the wider line follows, and it is the player's pulse.
+   The closer line counts only where its own groups lie on it (within half the tolerance):
+   a rushed run that jumps back into time is no pulse.
 5. Hesitations: walking through the part, a group that arrives more than
    ``hesitation_threshold`` seconds after the line through the groups before it *and*
    whose delay persists on the next group (the music resumes shifted, rather than one
@@ -678,18 +680,23 @@ class _TempoModel:
         slope, intercept = line
         return slope * s + intercept
 
-    def close_prediction(self, s: float, *, exclude_group: int | None = None) -> float | None:
+    def close_prediction(self, s: float, *, exclude_group: int | None = None, fit_tolerance: float) -> float | None:
         """The take time of ``s`` on a line through half as many neighbours (at least two a side).
 
         Rubato that swells and relaxes within a phrase bends the take's time line faster
         than the local line follows; a line through the nearest groups follows it. None where
-        it has fewer than two groups on each side (the edges have their own reading).
+        it has fewer than two groups on each side (the edges have their own reading), or where
+        those groups stray more than ``fit_tolerance`` seconds from the line: that is no
+        pulse but a jump (a rushed run that falls back into time), which the wider line reads.
         """
         n = max(2, self.neighbours // 2)
         before, _, after = self._around(s, exclude_group, neighbours=n)
         if before.size < 2 or after.size < 2:
             return None
         slope, intercept = self.fit(s, exclude_group=exclude_group, neighbours=n)
+        chosen = np.concatenate([before, after])
+        if np.max(np.abs(self.group_takes[chosen] - (slope * self.group_scores[chosen] + intercept))) > fit_tolerance:
+            return None
         return slope * s + intercept
 
     def edge_prediction(self, s: float, *, exclude_group: int | None = None) -> float | None:
@@ -1261,7 +1268,7 @@ def compare_notes(
                 residual = float(played_on[j] - edge)
             # and rubato within a phrase is the player's pulse too: a note is early or late
             # only if it is so against the closer line as well
-            close = model.close_prediction(float(part.onsets[i]), exclude_group=g)
+            close = model.close_prediction(float(part.onsets[i]), exclude_group=g, fit_tolerance=0.5 * timing_tolerance)
             if close is not None and abs(played_on[j] - close) < abs(residual):
                 residual = float(played_on[j] - close)
         name = pitch_name(part.pitches[i])
