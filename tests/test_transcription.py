@@ -221,6 +221,23 @@ def test_a_rise_in_two_stages_is_one_note_and_a_rise_after_a_fall_is_two():
     assert len(activations_to_notes(fall_rise, np.array([50]), times, min_fall=s.min_fall, **common)) == 2
 
 
+def test_an_attack_in_two_stages_with_a_dip_is_one_melodic_note():
+    # Invented activations (our own construction), hop 10 ms: a first swell to 0.4 dips to 0.3
+    # and the tone then rises to 0.8 within 0.12 s of the start (bow noise, then the string);
+    # two notes of equal strength 0.4 s apart are still two notes.
+    s = MELODIC_SETTINGS
+    times = np.arange(220) * 0.01
+    common = dict(onset_threshold=s.onset_threshold, offset_threshold=s.offset_threshold,
+                  release_ratio=s.release_ratio, reonset_rise=s.reonset_rise, reonset_dip=s.reonset_dip,
+                  polyphonic=False, min_fall=s.min_fall)
+    staged = np.interp(np.arange(220), [0, 10, 18, 22, 26, 190, 200, 219], [0, 0, .4, .3, .8, .8, 0, 0])[None]
+    assert len(activations_to_notes(staged, np.array([50]), times, **common)) == 2
+    notes = activations_to_notes(staged, np.array([50]), times, stage_window=s.stage_window, **common)
+    assert len(notes) == 1 and notes[0].onset <= 0.16
+    repeated = np.interp(np.arange(220), [0, 10, 16, 50, 56, 60, 190, 200, 219], [0, 0, .8, .8, .2, .8, .8, 0, 0])[None]
+    assert len(activations_to_notes(repeated, np.array([50]), times, stage_window=s.stage_window, **common)) == 2
+
+
 def test_expected_repeats_must_match_the_activations():
     H, pitches, times = _strokes(0.3)
     with pytest.raises(InputError, match="expected_repeats"):

@@ -360,6 +360,7 @@ def transcribe_long(
                 attack_zones=None if preset.polyphonic else starts,
                 zone_snap=settings.zone_snap, repeat_window=settings.repeat_window, max_rise=settings.max_rise,
                 valley_dip=settings.valley_dip, repeat_dip=settings.repeat_dip, notch_width=settings.notch_width, min_fall=settings.min_fall,
+                stage_window=settings.stage_window,
             )
             found = suppress_harmonic_ghosts(found, ratio=ghost_ratio, exempt=onset_exemption(starts, adapted.pitches, times))
             lo = (core_start - 0.5) * frame_seconds if b > 0 else -np.inf

@@ -228,6 +228,21 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
     return sorted(onsets + extra), set(extra)
 
 
+def _merge_attack_stages(a: np.ndarray, onsets: list[int], placed: set[int], stop: int, frame_times: np.ndarray,
+                         window: float, ratio: float) -> list[int]:
+    """Drop a rise onset that follows the previous onset within ``window`` seconds when the
+    swell before it peaked below ``ratio`` times its own peak: that swell was the first stage
+    of one attack (bow or breath noise, then the tone), not a note of its own."""
+    kept = onsets[:1]
+    for j, o in enumerate(onsets[1:], start=1):
+        following = onsets[j + 1] if j + 1 < len(onsets) else stop
+        if (o not in placed and frame_times[o] - frame_times[kept[-1]] < window
+                and a[kept[-1]:o].max() < ratio * a[o:following].max()):
+            continue
+        kept.append(o)
+    return kept
+
+
 def _rise_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
                  novelty: np.ndarray | None, novelty_threshold: float, relaxed: np.ndarray | None,
                  min_fall: float | None = None) -> list[int]:
@@ -301,6 +316,8 @@ def activations_to_notes(
     repeat_dip: float | None = None,
     notch_width: float = 0.0,
     min_fall: float | None = None,
+    stage_window: float = 0.0,
+    stage_ratio: float = 0.6,
 ) -> list[Note]:
     """Turn activations into note events.
 
@@ -381,6 +398,10 @@ def activations_to_notes(
         when the activation had fallen to at most this fraction of the highest level it held
         before the rise: a note whose attack comes in two stages (bow or breath noise, then
         the tone) rises twice without falling in between. None: no such test.
+    stage_window, stage_ratio : float
+        Melodic instruments: a new onset within ``stage_window`` seconds of the previous one
+        is dropped when the swell between them peaked below ``stage_ratio`` times the new
+        swell's peak: a bowed or blown attack that comes in two stages is one note. 0: off.
     max_rise : float, optional
         Seconds. For struck and plucked instruments: a note whose activation takes longer
         than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
@@ -451,6 +472,8 @@ def activations_to_notes(
                                    None if expected_onsets is None else expected_onsets[k],
                                    None if expected_repeats is None else expected_repeats[k], repeat_frames,
                                    None if polyphonic else valley_dip, repeat_dip, min_fall, notch_frames)
+            if stage_window > 0 and not polyphonic:
+                onsets = _merge_attack_stages(a, onsets, placed, stop, frame_times, stage_window, stage_ratio)
             for i, on in enumerate(onsets):
                 nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
                 part = a[on:nxt]

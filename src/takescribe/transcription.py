@@ -71,6 +71,11 @@ class TranscriptionSettings:
     notch_width : float
         Seconds: a valley down to ``repeat_dip`` on both sides and at most this wide at half
         its depth is a re-attack too, where the part repeats the pitch (same function).
+    stage_window : float
+        Seconds: melodic instruments, a rise within this time of the previous onset, after a
+        swell below 0.6 of its own peak, is the second stage of the same attack (same function).
+        Tuned on the large corpus's tuning split: 0.1-0.2 s the same (a cello jig's two-stage
+        attacks no longer split: informed onset F 0.886 -> 0.929), no piece lower.
     """
 
     beta: float = 1.0
@@ -104,6 +109,7 @@ class TranscriptionSettings:
     repeat_dip: float | None = None
     notch_width: float = 0.0
     min_fall: float | None = 0.9
+    stage_window: float = 0.0
 
 
 DEFAULT_SETTINGS = TranscriptionSettings()
@@ -132,7 +138,7 @@ POLYPHONIC_SETTINGS = TranscriptionSettings(onset_threshold=0.3, min_duration=0.
 MELODIC_SETTINGS = TranscriptionSettings(onset_threshold=0.2, min_duration=0.06, release_ratio=0.2,
                                          reonset_rise=0.1, onset_shift=-0.02, local_floor=0.3,
                                          use_novelty=True, novelty_threshold=2.0, novelty_snap=0.6, reonset_dip=0.5,
-                                         valley_dip=0.45, repeat_dip=0.75, notch_width=0.06)
+                                         valley_dip=0.45, repeat_dip=0.75, notch_width=0.06, stage_window=0.15)
 
 
 def onset_exemption(starts: np.ndarray | None, pitches: np.ndarray, frame_times: np.ndarray):
@@ -347,6 +353,7 @@ def transcribe(
         repeat_dip=settings.repeat_dip,
         notch_width=settings.notch_width,
         min_fall=settings.min_fall,
+        stage_window=settings.stage_window,
     )
     notes = suppress_harmonic_ghosts(notes, ratio=settings.ghost_ratio,
                                      exempt=onset_exemption(ghost_exempt, final_dictionary.pitches,
