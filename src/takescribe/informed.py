@@ -21,8 +21,11 @@ Method
 5. Where the part starts a pitch again right after a note of that pitch
    (:func:`score_mask` with ``repeats_only``), melodic tracking also splits a sounding
    note at a valley of its activation between two swells (a bow change or breath
-   between legato repeats). The valley must be as deep as any re-onset's dip, so a
-   note held through the written repeat stays one note.
+   between legato repeats): a valley as deep as any re-onset's dip, or a shallower one
+   (``repeat_dip``) that the next swell climbs out of at full strength or that is narrow
+   (``notch_width``, a tongued repeat's gap). The slower, wider sag of a note held
+   through the written repeat keeps it one note
+   (:func:`takescribe.tracking.activations_to_notes`).
 
 The score is a prior, never a cage: nothing in this module removes a detected note
 because the part does not have it.
@@ -39,9 +42,9 @@ import scipy.ndimage
 from .align import Alignment, align_reference
 from .dictionary import Dictionary
 from .instruments import Instrument, resolve_instrument
+from .notes import Note, sort_notes
 from .score import Reference, validate_reference
 from .spectrogram import compute_spectrogram
-from .notes import Note, sort_notes
 from .tracking import activations_to_notes, pitch_novelty
 from .transcription import Transcription, TranscriptionSettings, normalize_spectrogram, settings_for, transcribe
 

@@ -219,7 +219,7 @@ def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames
         depth = np.full(stop - start, valley_dip) if repeats is None else np.where(repeats[start:stop], dip, valley_dip)
     if repeat_dip is not None and repeats is not None:
         # where the part repeats the pitch, a shallower valley that the next swell climbs out
-        # of at full strength is a re-attack too
+        # of at full strength, or a narrow one, is a re-attack too
         reattack = np.where(repeats[start:stop], repeat_dip, 0.0)
     extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames,
                                                 reattack, notch_frames)]
