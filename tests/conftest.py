@@ -16,6 +16,15 @@ import pytest
 os.environ["NUMBA_CACHE_DIR"] = tempfile.mkdtemp(prefix="takescribe-numba-")
 
 ROOT = Path(__file__).resolve().parents[1]
+
+# The tests import the package from this checkout's src/, not from whatever copy is installed,
+# so a second working tree (git worktree) tests its own code; subprocesses inherit the path.
+import sys  # noqa: E402
+
+_SRC = str(ROOT / "src")
+if sys.path[:1] != [_SRC]:
+    sys.path.insert(0, _SRC)
+os.environ["PYTHONPATH"] = os.pathsep.join([_SRC] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p and p != _SRC])
 FIXTURES = ROOT / "fixtures"
 SHARED = ROOT.parent / "shared"
 MUSICXML_XSD_DIR = SHARED / "standards" / "musicxml-4.0"

@@ -1,4 +1,4 @@
-"""Tests for takescribe.align: score-to-take alignment.
+"""Tests for takescribe.alignment.align: score-to-take alignment.
 
 Ground truth: takes are rendered by fluidsynth (General MIDI sound font FluidR3_GM)
 from MIDI files we write ourselves with known, warped note-on times; the error of
@@ -25,7 +25,7 @@ import pytest
 import soundfile as sf
 from music21 import corpus
 
-from takescribe.align import (
+from takescribe.alignment.align import (
     MISMATCH_CONFIDENCE,
     Alignment,
     AlignmentWarning,
@@ -34,7 +34,7 @@ from takescribe.align import (
     take_features,
 )
 from takescribe.errors import AudioError, ScoreError
-from takescribe.score import Reference, ScoreNote, load_reference
+from takescribe.reference.part import Reference, ScoreNote, load_reference
 
 SR = 22050
 SOUNDFONT = Path("/usr/share/sounds/sf2/FluidR3_GM.sf2")
@@ -338,7 +338,7 @@ def test_part_rendering_in_blocks_equals_one_block():
     # The part's pitch energy is built a few thousand frames at a time (memory stays flat on
     # hour-long parts); a block edge must not change a single value. Part: a chorale from
     # music21's bundled public-domain corpus (BWV 269).
-    from takescribe.align import _render_reference
+    from takescribe.alignment.align import _render_reference
 
     reference = load_reference(corpus.getWork("bach/bwv269"), part=0)
     n_frames = int(np.ceil((max(n.offset for n in reference.notes) + 0.3) * 22050 / 512)) + 1

@@ -1,4 +1,4 @@
-"""Tests for takescribe.audio: formats, resampling, blockwise reading, the bad-input contract.
+"""Tests for takescribe.audio.load: formats, resampling, blockwise reading, the bad-input contract.
 
 Outside references used here:
 - librosa.load (soxr_hq resampling, mean down-mix) for every format/rate/channel combination;
@@ -20,8 +20,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from takescribe import audio
-from takescribe.audio import (
+from takescribe.audio import load as audio
+from takescribe.audio.load import (
     release_samples,
     AudioInfo,
     TakescribeWarning,

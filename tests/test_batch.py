@@ -8,10 +8,10 @@ from pathlib import Path
 
 import pytest
 
-from takescribe.batch import find_takes, run_batch
+from takescribe.jobs.batch import find_takes, run_batch
 from takescribe.cli import main
 from takescribe.errors import InputError
-from takescribe.pipeline import REPORT_FILES
+from takescribe.jobs.pipeline import REPORT_FILES
 
 CORPUS = Path(__file__).resolve().parents[1] / "fixtures" / "corpus"
 TAKES = ("heldout/adverse_detune445_arpeggios", "heldout/adverse_fast_altosax_jig", "tuning/adverse_mixed_trumpet_reel")

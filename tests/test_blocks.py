@@ -8,11 +8,11 @@ import numpy as np
 import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
-from takescribe.audio import load_audio
-from takescribe.blocks import block_layout, transcribe_long
+from takescribe.audio.load import load_audio
+from takescribe.transcription.blocks import block_layout, transcribe_long
 from takescribe.errors import InputError
-from takescribe.spectrogram import ANALYSIS_SR, HOP_LENGTH
-from takescribe.transcription import settings_for
+from takescribe.features.spectrogram import ANALYSIS_SR, HOP_LENGTH
+from takescribe.transcription.blind import settings_for
 
 CORPUS = Path(__file__).resolve().parents[1] / "fixtures" / "corpus"
 FRAME = HOP_LENGTH / ANALYSIS_SR
@@ -56,7 +56,7 @@ def test_a_take_spilled_to_a_file_gives_the_same_notes(tmp_path):
     # go: the notes must be those of the same take held in memory.
     import soundfile as sf
 
-    from takescribe.pipeline import load_take
+    from takescribe.jobs.pipeline import load_take
 
     y = _long_take("piano_alberti", 170.0)
     path = tmp_path / "long.wav"
@@ -78,10 +78,10 @@ def test_informed_blocks_agree_with_one_pass(name, program):
     # threshold, expected onsets and repeats, ghost exemption): the drafts agree note for note
     # up to the differences of one shared adaptation and normalisation (measured 0.999 onset F
     # of one against the other on a 3-minute piano take).
-    from takescribe.align import align_reference
-    from takescribe.evaluate import evaluate_notes
-    from takescribe.informed import informed_transcription
-    from takescribe.score import load_reference
+    from takescribe.alignment.align import align_reference
+    from takescribe.evaluation.metrics import evaluate_notes
+    from takescribe.transcription.informed import informed_transcription
+    from takescribe.reference.part import load_reference
 
     y, sr = load_audio(CORPUS / "tuning" / f"{name}.flac", sr=ANALYSIS_SR)
     reference = load_reference(CORPUS / "tuning" / f"{name}.musicxml")
@@ -144,7 +144,7 @@ def test_a_note_across_a_block_edge_is_neither_split_nor_doubled():
 def test_engine_column_slabs_equal_one_thread(monkeypatch, mask_penalty):
     # The property blocks rely on (frames independent once W is fixed) also lets the engine split
     # the frames into slabs, one thread each: the result must be that of the one-thread loop.
-    from takescribe import nmf
+    from takescribe.transcription import nmf
 
     rng = np.random.default_rng(3)
     W = (rng.random((60, 8)) + 0.05).astype(np.float32)

@@ -12,7 +12,7 @@ import pytest
 from lxml import etree
 
 from takescribe.cli import main
-from takescribe.noteio import read_maps
+from takescribe.export.noteio import read_maps
 
 from conftest import FIXTURES
 

@@ -1,4 +1,4 @@
-"""Tests of takescribe.compare on synthetic parts and takes of our own invention.
+"""Tests of takescribe.comparison.compare on synthetic parts and takes of our own invention.
 
 The synthetic part is a made-up study (no real piece): 4/4, quarter = 100 per minute,
 melody with a few two-note chords. Takes are rendered from it with known deviations
@@ -16,7 +16,7 @@ import librosa
 import numpy as np
 import pytest
 
-from takescribe.compare import KINDS, Comparison, compare_notes, findings_json, pitch_name
+from takescribe.comparison.compare import KINDS, Comparison, compare_notes, findings_json, pitch_name
 from takescribe.errors import InputError
 from takescribe.notes import Note
 
@@ -460,15 +460,15 @@ def _deviation_takes():
 def ground_truth_comparisons():
     """Each committed deviation take compared on its ground-truth notes (NAME.txt).
 
-    The alignment is the real one (takescribe.align on the take's audio), so what is measured
+    The alignment is the real one (takescribe.alignment.align on the take's audio), so what is measured
     is the comparison, not the transcription.
     """
     import warnings
 
-    from takescribe.align import align_reference
-    from takescribe.audio import load_audio
-    from takescribe.noteio import read_notes
-    from takescribe.score import load_reference
+    from takescribe.alignment.align import align_reference
+    from takescribe.audio.load import load_audio
+    from takescribe.export.noteio import read_notes
+    from takescribe.reference.part import load_reference
 
     entries = _deviation_takes()
     if not entries:
@@ -572,7 +572,7 @@ def test_json_schema_fields():
 
 
 def test_empty_take_reports_every_note_missed():
-    from takescribe.audio import TakescribeWarning
+    from takescribe.audio.load import TakescribeWarning
 
     ref = study(n_measures=2)
     with pytest.warns(TakescribeWarning, match="no notes were heard"):

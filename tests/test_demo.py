@@ -37,13 +37,13 @@ import music21
 import pytest
 
 from takescribe.cli import build_parser, main
-from takescribe.demo import (CAUTION, DEMO_STUDENTS, DRAFT_FILES, DemoResult, demo_bundle, format_demo_summary,
+from takescribe.jobs.demo import (CAUTION, DEMO_STUDENTS, DRAFT_FILES, DemoResult, demo_bundle, format_demo_summary,
                              load_scenario, run_demo)
 from takescribe.errors import EXIT_OUTPUT, OutputError
-from takescribe.midi import read_midi_notes
-from takescribe.noteio import read_maps
-from takescribe.pipeline import REPORT_FILES
-from takescribe.score import load_reference
+from takescribe.export.midi import read_midi_notes
+from takescribe.export.noteio import read_maps
+from takescribe.jobs.pipeline import REPORT_FILES
+from takescribe.reference.part import load_reference
 
 TIME_TOLERANCE = 0.5
 UNPLANNED_PER_SECONDS = 30.0

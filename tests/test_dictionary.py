@@ -6,10 +6,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from takescribe.dictionary import adapt_dictionary, harmonic_dictionary, load_dictionary, save_dictionary
+from takescribe.transcription.dictionary import adapt_dictionary, harmonic_dictionary, load_dictionary, save_dictionary
 from takescribe.errors import DictionaryError, OutputError
-from takescribe.nmf import decompose
-from takescribe.spectrogram import ANALYSIS_SR, compute_spectrogram
+from takescribe.transcription.nmf import decompose
+from takescribe.features.spectrogram import ANALYSIS_SR, compute_spectrogram
 
 SR = ANALYSIS_SR
 

@@ -1,4 +1,4 @@
-"""Tests of takescribe.evaluate against mir_eval (the reference implementation).
+"""Tests of takescribe.evaluation.metrics against mir_eval (the reference implementation).
 
 Every score check compares with mir_eval 0.8 (``mir_eval.transcription`` and
 ``mir_eval.multipitch``) on the same notes converted to Hz
@@ -16,7 +16,7 @@ import pytest
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import maximum_bipartite_matching
 
-from takescribe.evaluate import (
+from takescribe.evaluation.metrics import (
     candidate_matrix,
     evaluate_notes,
     frame_scores,

@@ -17,9 +17,9 @@ import warnings
 
 import pytest
 
-from takescribe.audio import load_audio
-from takescribe.pipeline import compare_take
-from takescribe.score import load_reference
+from takescribe.audio.load import load_audio
+from takescribe.jobs.pipeline import compare_take
+from takescribe.reference.part import load_reference
 
 from conftest import FIXTURES
 

@@ -259,7 +259,7 @@ def _write(folder: Path, name: str, data: bytes) -> Path:
 
 
 # ---------------------------------------------------------------------------
-# audio: takescribe.audio.load_audio
+# audio: takescribe.audio.load.load_audio
 
 AUDIO_SEEDS = audio_seeds()
 AUDIO_SUFFIX = {"wav16": ".wav", "wavfloat": ".wav", "wav24-6ch": ".wav", "flac": ".flac", "ogg": ".ogg"}
@@ -271,7 +271,7 @@ MAGICS = (b"", b"RIFF\x00\x10\x00\x00WAVEfmt ", b"fLaC\x00\x00\x00\x22", b"OggS\
 @FUZZ_SETTINGS
 @given(seed=st.sampled_from(sorted(AUDIO_SEEDS)), mutations=mutations_strategy)
 def test_load_audio_on_mutated_files(scratch, seed, mutations):
-    from takescribe.audio import load_audio
+    from takescribe.audio.load import load_audio
 
     path = _write(scratch, "take" + AUDIO_SUFFIX[seed], apply_mutations(AUDIO_SEEDS[seed], mutations))
     result = outcome(load_audio, path)
@@ -281,14 +281,14 @@ def test_load_audio_on_mutated_files(scratch, seed, mutations):
 @FUZZ_SETTINGS
 @given(prefix=st.sampled_from(MAGICS), body=st.binary(max_size=1024))
 def test_load_audio_on_random_bytes(scratch, prefix, body):
-    from takescribe.audio import load_audio
+    from takescribe.audio.load import load_audio
 
     path = _write(scratch, "noise.wav", prefix + body)
     assert outcome(load_audio, path) in ("ok", "AudioError")
 
 
 # ---------------------------------------------------------------------------
-# note lists: takescribe.noteio.read_maps
+# note lists: takescribe.export.noteio.read_maps
 
 
 @FUZZ_SETTINGS
@@ -308,7 +308,7 @@ def test_read_maps_on_random_text(scratch, text):
 
 
 # ---------------------------------------------------------------------------
-# MIDI: takescribe.midi.read_midi_notes
+# MIDI: takescribe.export.midi.read_midi_notes
 
 MIDI_SEED = _midi_seed()
 
@@ -322,7 +322,7 @@ def test_read_midi_notes_on_mutated_files(scratch, mutations):
 
 
 # ---------------------------------------------------------------------------
-# reference parts: takescribe.score.load_reference (MusicXML text, .mxl archive, MIDI)
+# reference parts: takescribe.reference.part.load_reference (MusicXML text, .mxl archive, MIDI)
 
 MXL_SEED = _mxl_seed()
 
@@ -353,7 +353,7 @@ def test_load_reference_on_mutated_midi(scratch, mutations):
 
 def test_seeds_are_valid(scratch):
     """The unmutated seeds read cleanly, so the mutations start from valid files."""
-    from takescribe.audio import load_audio
+    from takescribe.audio.load import load_audio
 
     for name, data in AUDIO_SEEDS.items():
         assert outcome(load_audio, _write(scratch, "seed" + AUDIO_SUFFIX[name], data)) == "ok", name

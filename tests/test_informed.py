@@ -4,7 +4,7 @@ Fixtures: fixtures/deviations (rendered with Debian's sampled GM soundfonts; the
 and the injected deviations are ground truth). The informed defaults were tuned on the cello
 ballad, flute and piano march takes; the piano waltz and violin minuet are held out, and the
 floors below are what was measured on 2026-12-02 minus 0.05. Scores follow the mir_eval
-conventions (takescribe.evaluate, checked against mir_eval in test_evaluate.py).
+conventions (takescribe.evaluation.metrics, checked against mir_eval in test_evaluate.py).
 """
 
 from __future__ import annotations
@@ -17,15 +17,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from takescribe.align import AlignmentWarning, align_reference
-from takescribe.audio import load_audio
+from takescribe.alignment.align import AlignmentWarning, align_reference
+from takescribe.audio.load import load_audio
 from takescribe.errors import ScoreError
-from takescribe.evaluate import note_scores
-from takescribe.informed import faint_notes, informed_transcription, score_mask
-from takescribe.noteio import read_maps
-from takescribe.pipeline import compare_take, transcribe_take
-from takescribe.score import load_reference
-from takescribe.transcription import transcribe
+from takescribe.evaluation.metrics import note_scores
+from takescribe.transcription.informed import faint_notes, informed_transcription, score_mask
+from takescribe.export.noteio import read_maps
+from takescribe.jobs.pipeline import compare_take, transcribe_take
+from takescribe.reference.part import load_reference
+from takescribe.transcription.blind import transcribe
 
 from conftest import FIXTURES
 

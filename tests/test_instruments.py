@@ -6,7 +6,7 @@ import pretty_midi
 import pytest
 
 from takescribe.errors import InputError
-from takescribe.instruments import GM_PROGRAM_NAMES, normalize_name, resolve_instrument
+from takescribe.transcription.instruments import GM_PROGRAM_NAMES, normalize_name, resolve_instrument
 
 
 # pretty_midi spells two GM Level 1 names differently (from memory, the GM 1 Sound Set lists

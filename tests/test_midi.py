@@ -1,4 +1,4 @@
-"""Tests of takescribe.midi: Standard MIDI File writing and reading.
+"""Tests of takescribe.export.midi: Standard MIDI File writing and reading.
 
 Outside references: the Standard MIDI File 1.0 specification (MMA) for the
 byte layout and the tempo unit (microseconds per quarter note); mido's own
@@ -16,7 +16,7 @@ import pretty_midi
 import pytest
 
 from takescribe.errors import NoteListError, OutputError
-from takescribe.midi import (
+from takescribe.export.midi import (
     MidiTrack,
     read_midi_notes,
     read_midi_tempo_map,

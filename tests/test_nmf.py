@@ -7,9 +7,9 @@ import pytest
 from sklearn.decomposition import non_negative_factorization
 from sklearn.decomposition._nmf import _beta_divergence
 
-from takescribe import nmf as nmf_module
+from takescribe.transcription import nmf as nmf_module
 from takescribe.errors import InputError
-from takescribe.nmf import beta_divergence, decompose, penalty_costs
+from takescribe.transcription.nmf import beta_divergence, decompose, penalty_costs
 
 
 def _problem(seed=0, F=40, K=6, T=120, dtype=np.float64):
@@ -130,9 +130,9 @@ def test_shape_mismatch_names_the_problem():
 
 def _harmonic_W(instrument="piano", dtype=np.float32):
     """The transcription dictionary: harmonic templates of a preset plus the broadband noise templates."""
-    from takescribe.dictionary import harmonic_dictionary
-    from takescribe.spectrogram import BINS_PER_SEMITONE, MIDI_HIGH, MIDI_LOW
-    from takescribe.transcription import noise_templates
+    from takescribe.transcription.dictionary import harmonic_dictionary
+    from takescribe.features.spectrogram import BINS_PER_SEMITONE, MIDI_HIGH, MIDI_LOW
+    from takescribe.transcription.blind import noise_templates
 
     # the VQT axis of compute_spectrogram at zero tuning, A4 = 440 Hz (ISO 16)
     n_bins = (MIDI_HIGH - MIDI_LOW) * BINS_PER_SEMITONE + 1

@@ -1,4 +1,4 @@
-"""Tests of takescribe.notation: quantized MusicXML 4.0 drafts.
+"""Tests of takescribe.notation.notate: quantized MusicXML 4.0 drafts.
 
 Ground truth: pieces written here with music21 (our own invented exercises) and pieces of
 music21's bundled corpus (a Bach chorale, a German folk song of the Essen collection).
@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 
 from takescribe.errors import InputError, OutputError
-from takescribe.notation import (
+from takescribe.notation.notate import (
     Notation,
     QuantizedNote,
     assign_voices,
@@ -179,7 +179,7 @@ PIECES = {
 
 @dataclass(frozen=True)
 class FakeReference:
-    """The attributes of takescribe.score.Reference that notation uses (score.py is written
+    """The attributes of takescribe.reference.part.Reference that notation uses (score.py is written
     concurrently; this mirrors the interface in DEVELOPERS.md)."""
 
     tempo_map: tuple
@@ -574,9 +574,9 @@ def test_write_refuses_to_overwrite(tmp_path):
 
 
 def test_midi_export_data_round_trips_through_the_midi_writer(tmp_path):
-    """tempo map + one track per staff, written by takescribe.midi and read back with
+    """tempo map + one track per staff, written by takescribe.export.midi and read back with
     pretty_midi: same notes, quantized rhythm at the take's tempo."""
-    midi = pytest.importorskip("takescribe.midi")
+    midi = pytest.importorskip("takescribe.export.midi")
     import pretty_midi
 
     score = piece_waltz_g()
@@ -625,8 +625,8 @@ def test_midi_time_line_follows_a_changing_tempo():
 
 
 def test_with_the_project_score_reader(tmp_path, schema):
-    """The same round trip with takescribe.score.load_reference reading the part."""
-    score_mod = pytest.importorskip("takescribe.score")
+    """The same round trip with takescribe.reference.part.load_reference reading the part."""
+    score_mod = pytest.importorskip("takescribe.reference.part")
     score = piece_morning_c()
     src = tmp_path / "morning_ref.musicxml"
     score.write("musicxml", fp=str(src))
@@ -666,7 +666,7 @@ def test_dense_random_notes_export_cleanly(seed, time_signature, program, tmp_pa
 
 
 def test_no_notes_warns_and_still_writes(tmp_path, schema):
-    from takescribe.notation import NotationWarning
+    from takescribe.notation.notate import NotationWarning
 
     with pytest.warns(NotationWarning, match="no notes"):
         notation = notate([], instrument_name="Cello", midi_program=42)

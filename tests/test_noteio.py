@@ -1,4 +1,4 @@
-"""Tests of takescribe.noteio: MAPS-style note lists and the read_notes dispatcher.
+"""Tests of takescribe.export.noteio: MAPS-style note lists and the read_notes dispatcher.
 
 The MAPS layout (header ``OnsetTime OffsetTime MidiPitch``, one note per line,
 seconds and MIDI numbers) is that of the MAPS dataset (Emiya et al., IEEE TASLP
@@ -19,8 +19,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from takescribe.errors import InputError, NoteListError, OutputError
-from takescribe.midi import MidiTrack, write_midi
-from takescribe.noteio import format_maps, parse_maps, read_maps, read_notes, write_maps
+from takescribe.export.midi import MidiTrack, write_midi
+from takescribe.export.noteio import format_maps, parse_maps, read_maps, read_notes, write_maps
 from takescribe.notes import Note, sort_notes
 
 MAPS_EXAMPLE = "OnsetTime\tOffsetTime\tMidiPitch\n0.500000\t1.250000\t60\n1.000000\t1.500000\t64\n"
@@ -179,11 +179,11 @@ def test_read_notes_dispatch(tmp_path):
 
 
 def test_read_notes_musicxml():
-    if importlib.util.find_spec("takescribe.score") is None:
-        pytest.skip("takescribe.score (MusicXML reader) is not in the tree yet")
+    if importlib.util.find_spec("takescribe.reference.part") is None:
+        pytest.skip("takescribe.reference.part (MusicXML reader) is not in the tree yet")
     from music21 import corpus
 
-    from takescribe.score import load_reference
+    from takescribe.reference.part import load_reference
 
     # music21's bundled corpus: Bach chorale BWV 66.6, soprano part
     path = Path(str(corpus.getWork("bach/bwv66.6")))

@@ -1,4 +1,4 @@
-"""Tests of takescribe.report: the files of a practice report and their formats.
+"""Tests of takescribe.report.practice: the files of a practice report and their formats.
 
 Outside references: the MusicXML 4.0 XSD (W3C Music Notation Community Group, via the
 ``musicxml_schema`` fixture), music21's MusicXML reader, Python's html.parser and json,
@@ -23,10 +23,10 @@ from lxml import etree
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from test_compare import FakeAlignment, _restart_take, _single_line, study  # noqa: E402
 
-from takescribe.compare import KINDS, compare_notes  # noqa: E402
+from takescribe.comparison.compare import KINDS, compare_notes  # noqa: E402
 from takescribe.errors import OutputError  # noqa: E402
 from takescribe.notes import Note  # noqa: E402
-from takescribe.report import KIND_STYLES, annotate_musicxml, write_report  # noqa: E402
+from takescribe.report.practice import KIND_STYLES, annotate_musicxml, write_report  # noqa: E402
 
 
 def _comparison_with_everything():
@@ -127,7 +127,7 @@ def test_annotated_musicxml_from_a_real_file(tmp_path, musicxml_schema):
     """Annotate a MusicXML file written by music21 (our own little tune) and validate it."""
     import music21
 
-    from takescribe.score import load_reference
+    from takescribe.reference.part import load_reference
 
     tune = music21.converter.parse("tinyNotation: 4/4 c4 d8 e8 f4 g4 a4 g4 e4 c4 d2 r2", makeNotation=True)
     source = tmp_path / "tune.musicxml"
@@ -182,7 +182,7 @@ def test_html_is_self_contained_with_piano_roll_and_table(tmp_path, everything):
 
 
 def test_large_take_is_embedded_smaller(tmp_path, everything, monkeypatch):
-    import takescribe.report as report
+    import takescribe.report.practice as report
 
     ref, result = everything
     take = tmp_path / "take.wav"
@@ -197,8 +197,8 @@ def test_large_take_is_embedded_smaller(tmp_path, everything, monkeypatch):
 
 def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_schema):
     """A committed piano part (two staves, chords) annotated from its deviation take."""
-    from takescribe.noteio import read_notes
-    from takescribe.score import load_reference
+    from takescribe.export.noteio import read_notes
+    from takescribe.reference.part import load_reference
 
     folder = Path(__file__).resolve().parents[1] / "fixtures" / "deviations"
     score, take = folder / "dev_piano_march.musicxml", folder / "dev_piano_march_pitch.txt"
@@ -221,6 +221,6 @@ def test_annotated_two_staff_fixture_validates(tmp_path, musicxml_schema):
 def test_beats_are_shown_as_musicians_count_them(beat, shown):
     # Common practice, no source: positions inside a beat are read as halves, quarters and
     # thirds (triplets) of it; anything else is shown to one decimal.
-    from takescribe.report import _format_beat
+    from takescribe.report.practice import _format_beat
 
     assert _format_beat(beat) == shown

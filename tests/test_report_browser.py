@@ -8,7 +8,7 @@ page makes no network request. Chromium is driven with command-line switches onl
 ``chromium`` is not on PATH (``.ci/run`` installs it).
 
 The report is made once per test run from a committed deviation fixture through
-:func:`takescribe.pipeline.compare_file`; under pytest-xdist the workers share it through a lock
+:func:`takescribe.jobs.pipeline.compare_file`; under pytest-xdist the workers share it through a lock
 file in the run's common temporary folder. Each Chromium run gets its own profile folder.
 Screenshots are kept in the pytest temporary folder and copied to ``/tmp/report-screenshot.png``
 (and ``/tmp/report-screenshot-grey.png``, the page through a greyscale filter) for a person to look at.
@@ -180,7 +180,7 @@ def _hex_rgb(colour: str) -> np.ndarray:
 @pytest.fixture(scope="session")
 def browser_report(tmp_path_factory) -> dict:
     """The report of the violin minuet take with deviations, made once per run (shared by xdist workers)."""
-    from takescribe.pipeline import compare_file
+    from takescribe.jobs.pipeline import compare_file
 
     worker = os.environ.get("PYTEST_XDIST_WORKER")
     # the workers of one run share the parent of their own temporary folders
@@ -289,7 +289,7 @@ def test_embedded_take_decodes_to_its_length(probed):
 
 
 def test_legend_markers_stand_out_from_the_page(probed):
-    from takescribe.report import KIND_STYLES
+    from takescribe.report.practice import KIND_STYLES
 
     legend = {item["text"]: item["shapes"] for item in probed["legend"]}
     for kind, style in KIND_STYLES.items():
@@ -334,7 +334,7 @@ def test_screenshot_shows_the_drawings_and_finding_colours(browser_report, probe
         # a few pixels of exactly this colour (anti-aliased edges aside) inside the piano-roll rows
         return int(np.sum(np.all(np.abs(roll - _hex_rgb(colour)) <= 8, axis=1))) >= 3
 
-    from takescribe.report import _PLAYED_FILL, KIND_STYLES
+    from takescribe.report.practice import _PLAYED_FILL, KIND_STYLES
 
     assert found(_PLAYED_FILL), "no played note drawn in the piano roll"
     kinds = {f["kind"] for f in browser_report["findings"]}

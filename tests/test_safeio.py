@@ -11,7 +11,7 @@ import time
 
 import pytest
 
-from takescribe import pipeline
+from takescribe.jobs import pipeline as pipeline
 from takescribe.cli import main
 from takescribe.errors import OutputError
 from takescribe.safeio import atomic_write, write_bytes, write_text

@@ -1,4 +1,4 @@
-"""Tests for takescribe.score: reference parts from MusicXML and MIDI.
+"""Tests for takescribe.reference.part: reference parts from MusicXML and MIDI.
 
 Outside references: music21 (its bundled corpus and its own reading of the
 same files), pretty_midi (note times of a MIDI file), the Standard MIDI File
@@ -19,7 +19,7 @@ from music21 import tie as m21tie
 
 from takescribe.errors import ScoreError
 from takescribe.notes import Note
-from takescribe.score import (
+from takescribe.reference.part import (
     MAX_XML_BYTES,
     Reference,
     ScoreWarning,
@@ -396,7 +396,7 @@ def _partwise_to_timewise(data: bytes) -> bytes:
 def test_timewise_reads_like_partwise(our_piece_paths, tmp_path, musicxml_schema):
     import lxml.etree as LET
 
-    from takescribe.score import _timewise_to_partwise
+    from takescribe.reference.part import _timewise_to_partwise
 
     xml, _ = our_piece_paths
     timewise = _partwise_to_timewise(xml.read_bytes())

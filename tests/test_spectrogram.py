@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from takescribe.errors import InputError
-from takescribe.spectrogram import ANALYSIS_SR, compute_spectrogram
+from takescribe.features.spectrogram import ANALYSIS_SR, compute_spectrogram
 
 
 def _tone(freq, seconds=2.0, sr=ANALYSIS_SR, partials=1):

@@ -3,7 +3,7 @@
 The fixtures are rendered with Debian's sampled General-MIDI soundfonts (fluid-soundfont-gm,
 csound-soundfont; see fixtures/build_corpus.py); takescribe's dictionaries are parametric
 presets, never learned from those soundfonts. Scores follow the mir_eval transcription
-conventions (onset tolerance 50 ms, pitch tolerance 50 cents; takescribe.evaluate is checked
+conventions (onset tolerance 50 ms, pitch tolerance 50 cents; takescribe.evaluation.metrics is checked
 against mir_eval in test_evaluate.py, and one piece is cross-checked against mir_eval here).
 
 Settings were tuned on the *tuning* split only (tests/benchmarks/tune_tracking.py). Each floor
@@ -20,13 +20,13 @@ import mir_eval
 import numpy as np
 import pytest
 
-from takescribe.audio import load_audio
+from takescribe.audio.load import load_audio
 from takescribe.errors import InputError
-from takescribe.evaluate import note_scores
+from takescribe.evaluation.metrics import note_scores
 from takescribe.notes import notes_to_arrays
-from takescribe.noteio import read_maps
-from takescribe.tracking import activations_to_notes
-from takescribe.transcription import MELODIC_SETTINGS, POLYPHONIC_SETTINGS, transcribe
+from takescribe.export.noteio import read_maps
+from takescribe.transcription.tracking import activations_to_notes
+from takescribe.transcription.blind import MELODIC_SETTINGS, POLYPHONIC_SETTINGS, transcribe
 
 from conftest import FIXTURES
 

@@ -1,10 +1,9 @@
 """takescribe: turn an instrument take into a draft score and compare it with the part.
 
-Data flow (one module per stage; each imports only from stages before it):
+Data flow (one subpackage per stage; each imports only from stages before it):
 
-audio → spectrogram → instruments/dictionary → nmf → tracking (notes) →
-noteio/midi/notation (export) · score/align (reference) · evaluate · compare/report →
-pipeline → cli
+audio → features → reference → alignment → transcription (notes) →
+notation · export · evaluation · comparison → report → jobs → cli
 """
 
 from .errors import TakescribeError

@@ -120,7 +120,7 @@ def _show_warning(message, category, filename, lineno, file=None, line=None) -> 
 
 
 def _run(args: argparse.Namespace, progress: Progress) -> int:
-    from . import pipeline
+    from .jobs import pipeline
 
     if args.command == "transcribe":
         out = pipeline.transcribe_file(
@@ -146,7 +146,7 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
         print(pipeline.format_comparison_summary(out))
         return EXIT_OK
     if args.command == "batch":
-        from .batch import run_batch
+        from .jobs.batch import run_batch
 
         summary = run_batch(args.input_dir, args.output, score_dir=args.scores, jobs=args.jobs,
                             scheduler=args.scheduler, force=args.force, progress=not args.quiet,
@@ -159,7 +159,7 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
         print(f"wrote {args.output}: {learned.n_pitches} templates for {learned.instrument}")
         return EXIT_OK
     if args.command == "demo":
-        from . import demo
+        from .jobs import demo
 
         print(demo.format_demo_summary(demo.run_demo(args.output, force=args.force, progress=progress)))
         return EXIT_OK

@@ -8,8 +8,8 @@ Usage::
     python tests/benchmarks/bench.py --memory-only [--json out.json]
 
 Accuracy: every piece of the split is transcribed blind and score-informed (with its
-reference MusicXML) through :func:`takescribe.pipeline.transcribe_take`, and scored
-against its MAPS ground truth with :func:`takescribe.evaluate.evaluate_notes`
+reference MusicXML) through :func:`takescribe.jobs.pipeline.transcribe_take`, and scored
+against its MAPS ground truth with :func:`takescribe.evaluation.metrics.evaluate_notes`
 (mir_eval conventions: onset F-measure with a 50 ms window, onset+offset
 F-measure, frame accuracy on a 10 ms grid). Printed per piece, per category
 (polyphonic piano, melody, adverse conditions) and as a one-line summary, with the
@@ -62,10 +62,10 @@ SHORT = {"onset.f_measure": "onset F", "onset_offset.f_measure": "on+off F", "fr
 
 
 def _imports():
-    from takescribe.evaluate import evaluate_notes
-    from takescribe.noteio import read_maps
-    from takescribe.pipeline import load_take, transcribe_take
-    from takescribe.score import load_reference
+    from takescribe.evaluation.metrics import evaluate_notes
+    from takescribe.export.noteio import read_maps
+    from takescribe.jobs.pipeline import load_take, transcribe_take
+    from takescribe.reference.part import load_reference
 
     return evaluate_notes, read_maps, load_take, transcribe_take, load_reference
 
@@ -138,8 +138,8 @@ def concatenated_take(minutes: float, *, gap: float = 1.0):
     seconds and by the matching number of quarters at the piece's first tempo, with a
     tempo change at each junction so score seconds and take seconds agree.
     """
-    from takescribe.pipeline import load_take
-    from takescribe.score import Reference, load_reference
+    from takescribe.jobs.pipeline import load_take
+    from takescribe.reference.part import Reference, load_reference
 
     entries = [e for e in json.loads((CORPUS / "index.json").read_text()) if e["category"] == "piano"]
     pieces = []
@@ -190,7 +190,7 @@ def concatenated_take(minutes: float, *, gap: float = 1.0):
 
 
 def speed_pipeline(minutes_list=(1, 10)) -> dict:
-    from takescribe.pipeline import transcribe_take
+    from takescribe.jobs.pipeline import transcribe_take
 
     out = {}
     for minutes in minutes_list:
@@ -216,10 +216,10 @@ def speed_pipeline(minutes_list=(1, 10)) -> dict:
 
 def _problem():
     """The factorization of a corpus piano piece: normalised V and dictionary with noise templates."""
-    from takescribe.dictionary import harmonic_dictionary
-    from takescribe.pipeline import load_take
-    from takescribe.spectrogram import compute_spectrogram
-    from takescribe.transcription import noise_templates, normalize_spectrogram
+    from takescribe.transcription.dictionary import harmonic_dictionary
+    from takescribe.jobs.pipeline import load_take
+    from takescribe.features.spectrogram import compute_spectrogram
+    from takescribe.transcription.blind import noise_templates, normalize_spectrogram
 
     y, sr = load_take(CORPUS / "tuning" / "piano_scales.flac")
     y = np.tile(y, 3)  # ~34 s: T large enough for steady timings
@@ -259,8 +259,8 @@ def speed_engine(n_iter: int = 100, repeats: int = 7) -> dict:
     from sklearn.decomposition import non_negative_factorization
     from threadpoolctl import threadpool_limits
 
-    from takescribe import nmf
-    from takescribe.nmf import beta_divergence, decompose
+    from takescribe.transcription import nmf
+    from takescribe.transcription.nmf import beta_divergence, decompose
 
     V, W = _problem()
     F, T = V.shape
@@ -383,7 +383,7 @@ def speed_engine(n_iter: int = 100, repeats: int = 7) -> dict:
 
 _MEMORY_CHILD = r"""
 import json, pickle, resource, sys, time, warnings
-from takescribe.pipeline import load_take, transcribe_take
+from takescribe.jobs.pipeline import load_take, transcribe_take
 minutes, mode, take, part = float(sys.argv[1]), sys.argv[2], sys.argv[3], sys.argv[4]
 reference = pickle.loads(open(part, "rb").read()) if mode == "informed" else None
 t0 = time.perf_counter()

@@ -4,13 +4,13 @@ Usage::
 
     python tests/benchmarks/bench_findings.py [--ground-truth] [--onsets]
 
-For every take in fixtures/deviations, runs ``takescribe.pipeline.compare_take`` (score-informed
+For every take in fixtures/deviations, runs ``takescribe.jobs.pipeline.compare_take`` (score-informed
 transcription, alignment, comparison) — or, with ``--ground-truth``, compares the played
 ground-truth notes, to separate comparison errors from transcription errors — and matches the
 findings to the injected deviations by kind, pitch and time within 0.25 s. Prints per take and
 per kind precision, recall and F-measure, and false findings per minute on the correct takes.
 ``--onsets`` adds, per take, the onset F-measure of the score-informed draft against the take's
-played notes (mir_eval conventions through takescribe.evaluate: 50 ms, 50 cents).
+played notes (mir_eval conventions through takescribe.evaluation.metrics: 50 ms, 50 cents).
 """
 
 from __future__ import annotations
@@ -22,13 +22,13 @@ import sys
 import warnings
 from pathlib import Path
 
-from takescribe.align import align_reference
-from takescribe.audio import load_audio
-from takescribe.compare import compare_notes
-from takescribe.evaluate import note_scores
-from takescribe.noteio import read_maps
-from takescribe.pipeline import compare_take
-from takescribe.score import load_reference
+from takescribe.alignment.align import align_reference
+from takescribe.audio.load import load_audio
+from takescribe.comparison.compare import compare_notes
+from takescribe.evaluation.metrics import note_scores
+from takescribe.export.noteio import read_maps
+from takescribe.jobs.pipeline import compare_take
+from takescribe.reference.part import load_reference
 
 ROOT = Path(__file__).resolve().parents[2]
 DEV = ROOT / "fixtures" / "deviations"

@@ -6,9 +6,9 @@ Usage::
 
 Each variant changes the spectrogram (bins per semitone, hop) and/or the iterations of
 each factorization pass; the spectrogram is computed here and handed to
-:func:`takescribe.transcription.transcribe`, so the package defaults stay untouched.
+:func:`takescribe.transcription.blind.transcribe`, so the package defaults stay untouched.
 Printed per variant: mean onset and onset+offset F-measure (mir_eval conventions via
-:func:`takescribe.evaluate.evaluate_notes`), and the CPU seconds of the transcription
+:func:`takescribe.evaluation.metrics.evaluate_notes`), and the CPU seconds of the transcription
 per audio second (CPU rather than wall time, so other load on the machine matters less).
 Only blind mode: score-informed transcription computes its own spectrogram.
 """
@@ -46,11 +46,11 @@ def main(argv=None) -> int:
     parser.add_argument("--force", action="store_true")
     args = parser.parse_args(argv)
 
-    from takescribe.evaluate import evaluate_notes
-    from takescribe.noteio import read_maps
-    from takescribe.pipeline import load_take
-    from takescribe.spectrogram import compute_spectrogram, estimate_tuning
-    from takescribe.transcription import settings_for, transcribe
+    from takescribe.evaluation.metrics import evaluate_notes
+    from takescribe.export.noteio import read_maps
+    from takescribe.jobs.pipeline import load_take
+    from takescribe.features.spectrogram import compute_spectrogram, estimate_tuning
+    from takescribe.transcription.blind import settings_for, transcribe
 
     entries = json.loads((CORPUS / "index.json").read_text())
     if args.split != "all":

@@ -14,7 +14,7 @@ rows stay out; the sets are re-checked every ``prune_after`` iterations. The noi
 templates are always kept.
 
 The updates here are a plain float32 numpy loop (the same rule as
-:func:`takescribe.nmf.decompose`: ``H ← H ⊙ Wᵀ(V / max(WH, eps)) / (Σ_f W + mask term)``),
+:func:`takescribe.transcription.nmf.decompose`: ``H ← H ⊙ Wᵀ(V / max(WH, eps)) / (Σ_f W + mask term)``),
 so the numbers do not depend on the engine's tiling. For each setting it prints
 
 - ``kept``: the fraction of (pitch row, block) pairs still computed after the last
@@ -26,12 +26,12 @@ so the numbers do not depend on the engine's tiling. For each setting it prints
   own band of rows only (first to last non-zero bin; no cost per BLAS call), a bound
   on what pruning combined with banded tiles could reach;
 - ``cost``: the change of the final KL cost D(V | W H) (full W, final H,
-  :func:`takescribe.nmf.beta_divergence`) against the same loop without pruning.
+  :func:`takescribe.transcription.nmf.beta_divergence`) against the same loop without pruning.
 
 Matrices: the engine benchmark's problem (``bench._problem``: a corpus piano take, 298
 bins × 91 templates × ~2900 frames, constant start, 100 iterations, as in
 ``bench.speed_engine``) and the factorizations the pipeline runs on corpus takes
-(captured from :func:`takescribe.transcription.transcribe`: blind and score-informed,
+(captured from :func:`takescribe.transcription.blind.transcribe`: blind and score-informed,
 first pass and the pass after template adaptation, with their masks, run here for all
 of their 60 iterations where the pipeline may stop earlier at its tolerance).
 
@@ -55,7 +55,7 @@ N_NOISE = 3  # the noise templates the transcription appends to W (always kept)
 
 
 def _start(V, W, options):
-    """H and the mask term as :func:`takescribe.nmf.decompose` builds them from its options."""
+    """H and the mask term as :func:`takescribe.transcription.nmf.decompose` builds them from its options."""
     K, T = W.shape[1], V.shape[1]
     eps = np.finfo(np.float32).eps
     if options.get("H_init") is not None:
@@ -115,7 +115,7 @@ def run(V, W, H, mask_term, n_iter, *, level=0.0, block=128, prune_after=10, ref
 
 
 def _report(label, V, W, H, mask_term, n_iter, settings):
-    from takescribe.nmf import beta_divergence
+    from takescribe.transcription.nmf import beta_divergence
 
     exact, _, _, banded = run(V, W, H, mask_term, n_iter)
     cost = beta_divergence(V, W @ exact, 1.0)
@@ -130,9 +130,9 @@ def _report(label, V, W, H, mask_term, n_iter, settings):
 
 def pipeline_factorizations(n_takes: int):
     """The factorizations the transcription runs on ``n_takes`` corpus takes, blind and informed."""
-    import takescribe.transcription as transcription
-    from takescribe.pipeline import load_take, transcribe_take
-    from takescribe.score import load_reference
+    import takescribe.transcription.blind as transcription
+    from takescribe.jobs.pipeline import load_take, transcribe_take
+    from takescribe.reference.part import load_reference
 
     entries = json.loads((CORPUS / "index.json").read_text())
     entries = entries[:: max(1, len(entries) // max(n_takes, 1))][:n_takes]

@@ -7,7 +7,7 @@ Usage::
 The factorization runs once per piece (its settings from ``--factorization``, a JSON object of
 ``TranscriptionSettings`` fields); the note-tracking grid (``--grid``, a JSON object of lists)
 is then swept on the cached activations. Prints the onset F-measure (mir_eval conventions,
-through takescribe.evaluate) per category and setting, best first. Never tune on held-out.
+through takescribe.evaluation.metrics) per category and setting, best first. Never tune on held-out.
 """
 
 from __future__ import annotations
@@ -21,12 +21,12 @@ from pathlib import Path
 
 import numpy as np
 
-from takescribe.audio import load_audio
-from takescribe.evaluate import note_scores
-from takescribe.instruments import resolve_instrument
-from takescribe.noteio import read_maps
-from takescribe.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
-from takescribe.transcription import normalize_spectrogram, settings_for, transcribe
+from takescribe.audio.load import load_audio
+from takescribe.evaluation.metrics import note_scores
+from takescribe.transcription.instruments import resolve_instrument
+from takescribe.export.noteio import read_maps
+from takescribe.transcription.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
+from takescribe.transcription.blind import normalize_spectrogram, settings_for, transcribe
 
 ROOT = Path(__file__).resolve().parents[2]
 CORPUS = ROOT / "fixtures" / "corpus"

@@ -56,7 +56,7 @@ import numpy as np
 import soundfile as sf
 import soxr
 
-from .errors import AudioError, InputError
+from ..errors import AudioError, InputError
 
 __all__ = [
     "TakescribeWarning",

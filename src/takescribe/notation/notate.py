@@ -67,9 +67,9 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from .errors import InputError, OutputError
-from .notes import Note, sort_notes, validate_notes
-from .safeio import check_writable, write_text
+from ..errors import InputError, OutputError
+from ..notes import Note, sort_notes, validate_notes
+from ..safeio import check_writable, write_text
 
 __all__ = [
     "BeatGrid",
@@ -691,7 +691,7 @@ def onset_envelope(y: np.ndarray, sr: int, *, hop_length: int = 512, n_fft: int 
     """
     import librosa
 
-    from .audio import frames_segment, release_samples
+    from ..audio.load import frames_segment, release_samples
 
     n_frames = 1 + len(y) // hop_length
     if n_frames <= block_frames:

@@ -44,10 +44,10 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from .compare import KINDS, Comparison, pitch_name
-from .errors import InputError, OutputError
-from .notes import Note
-from .safeio import ensure_folder, write_bytes, write_text
+from ..comparison.compare import KINDS, Comparison, pitch_name
+from ..errors import InputError, OutputError
+from ..notes import Note
+from ..safeio import ensure_folder, write_bytes, write_text
 
 __all__ = ["KIND_STYLES", "KindStyle", "MAX_EMBED_BYTES", "write_report", "render_html", "annotate_musicxml"]
 
@@ -174,7 +174,7 @@ def _embedded_audio(take_path: str | os.PathLike) -> tuple[str, bytes]:
         return mime, path.read_bytes()
     import soundfile as sf
 
-    from .audio import load_audio, release_samples
+    from ..audio.load import load_audio, release_samples
 
     # a long take stays in a temporary file and is encoded block by block (flat memory)
     y, sr = load_audio(path, sr=16000, spill_seconds=150.0)

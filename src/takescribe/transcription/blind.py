@@ -16,12 +16,12 @@ from typing import Callable
 
 import numpy as np
 
-from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
-from .instruments import Instrument, resolve_instrument
-from .nmf import Factorization, decompose
-from .notes import Note
-from .spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
-from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
+from ..transcription.dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
+from ..transcription.instruments import Instrument, resolve_instrument
+from ..transcription.nmf import Factorization, decompose
+from ..notes import Note
+from ..features.spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
+from ..transcription.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 
 __all__ = ["TranscriptionSettings", "Transcription", "transcribe", "settings_for", "noise_templates", "DEFAULT_SETTINGS",
            "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram", "onset_exemption"]

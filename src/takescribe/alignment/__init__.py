@@ -1,0 +1,2 @@
+"""Score time to take time: chroma and onset DTW, pauses and jumps back."""
+

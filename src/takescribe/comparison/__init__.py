@@ -1,0 +1,2 @@
+"""Findings of a take against its part."""
+

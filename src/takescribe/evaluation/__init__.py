@@ -1,0 +1,2 @@
+"""mir_eval-convention matching and metrics."""
+

@@ -1,0 +1,2 @@
+"""Notes to files and back: Standard MIDI Files and note lists."""
+

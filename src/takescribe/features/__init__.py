@@ -1,0 +1,2 @@
+"""Time-frequency features of a take: the equalised variable-Q spectrogram."""
+

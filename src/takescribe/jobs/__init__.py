@@ -1,0 +1,2 @@
+"""The jobs, glued from the stages: transcribe, compare, evaluate, batch, demo."""
+

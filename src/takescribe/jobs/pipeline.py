@@ -1,0 +1,362 @@
+"""Glue: the stages of takescribe chained into the jobs the command line offers.
+
+Each function here takes paths and options, calls the stage modules in data-flow
+order, writes outputs through :mod:`takescribe.safeio` and returns values; no
+argument parsing (that is :mod:`takescribe.cli`) and no signal processing of its own.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from ..alignment.align import MISMATCH_CONFIDENCE, AlignmentWarning, align_reference
+from ..comparison.compare import compare_notes
+from ..audio.load import load_audio
+from ..transcription.blocks import LONG_TAKE_SECONDS, transcribe_long
+from ..transcription.dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, load_dictionary, save_dictionary
+from ..errors import InputError, ScoreError
+from ..evaluation.metrics import evaluate_notes
+from ..transcription.informed import faint_notes, informed_transcription, score_mask
+from ..transcription.instruments import Instrument, resolve_instrument
+from ..export.midi import MidiTrack, midi_bytes, write_midi
+from ..transcription.nmf import decompose
+from ..notation.notate import notate, write_musicxml
+from ..export.noteio import read_notes, write_maps
+from ..report.practice import write_report
+from ..safeio import write_text
+from ..reference.part import load_reference
+from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
+from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
+
+__all__ = ["TranscribeOutputs", "CompareOutputs", "compare_file", "compare_take", "REPORT_FILES", "transcribe_file", "transcribe_take", "evaluate_files", "learn_dictionary_file",
+           "load_take", "draft_midi_tracks", "write_draft_midi"]
+
+
+# ----------------------------------------------------------------------------- file-level jobs
+
+
+@dataclass(frozen=True)
+class TranscribeOutputs:
+    """What :func:`transcribe_file` produced.
+
+    Attributes
+    ----------
+    transcription : Transcription
+    written : list of Path
+        Files written, in order.
+    reference : takescribe.score.Reference or None
+    alignment : takescribe.align.Alignment or None
+    notation : takescribe.notation.Notation or None
+    """
+
+    transcription: Transcription
+    written: list
+    reference: object = None
+    alignment: object = None
+    notation: object = None
+
+
+def _check_outputs(paths, *, force: bool) -> None:
+    """Refuse, before any work, outputs that exist (unless ``force``) or collide."""
+    from ..safeio import check_writable
+
+    seen = set()
+    for path in paths:
+        if path is None:
+            continue
+        resolved = Path(path).resolve()
+        if resolved in seen:
+            raise InputError(f"{path}: the same file is given for two outputs; choose distinct names")
+        seen.add(resolved)
+        check_writable(path, force=force)
+
+
+def _check_not_input(outputs, inputs) -> None:
+    """An output must never be one of the inputs (inputs are never modified)."""
+    ins = {Path(p).resolve() for p in inputs if p is not None}
+    for path in outputs:
+        if path is not None and Path(path).resolve() in ins:
+            raise InputError(f"{path}: output would overwrite an input file; choose another output name")
+
+
+def load_take(path, *, progress: Callable[[str], None] | None = None) -> tuple[np.ndarray, int]:
+    """Read a take at the analysis rate (see :func:`takescribe.audio.load_audio`).
+
+    A take long enough to go block by block (:data:`takescribe.blocks.LONG_TAKE_SECONDS`)
+    is spilled to a temporary file and mapped read-only, so memory does not grow with it.
+    """
+    if progress:
+        progress(f"reading {Path(path).name}")
+    return load_audio(path, sr=ANALYSIS_SR, spill_seconds=LONG_TAKE_SECONDS)
+
+
+def transcribe_take(
+    y: np.ndarray,
+    sr: int,
+    *,
+    instrument: "str | int | Instrument | None" = None,
+    reference=None,
+    dictionary: Dictionary | None = None,
+    settings: TranscriptionSettings | None = None,
+    progress: Callable[[str], None] | None = None,
+    alignment=None,
+):
+    """Blind or score-informed transcription of a loaded take.
+
+    Returns ``(transcription, alignment)``; ``alignment`` is None without a reference.
+    With a reference whose alignment confidence is below the mismatch level, a
+    warning says so and the transcription falls back to blind mode (the part would
+    mislead the factorization).
+    """
+    if instrument is None:
+        program = getattr(reference, "midi_program", None)
+        instrument = program if program is not None else "piano"
+    # long takes go block by block so memory stays flat (see takescribe.blocks)
+    long_take = len(y) > LONG_TAKE_SECONDS * sr
+    blind = transcribe_long if long_take else transcribe
+    if reference is None:
+        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+                     progress=progress), None
+    if alignment is None:
+        if progress:
+            progress("aligning the part with the take")
+        alignment = align_reference(y, sr, reference, warn=False)
+    if alignment.confidence < MISMATCH_CONFIDENCE:
+        warnings.warn(
+            f"the take does not seem to match the part (alignment confidence {alignment.confidence:.2f});"
+            " transcribing without the part", AlignmentWarning, stacklevel=2)
+        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+                     progress=progress), alignment
+    if progress:
+        progress("score-informed factorization")
+    if long_take:
+        result = transcribe_long(y, sr, reference=reference, alignment=alignment, instrument=instrument,
+                                 dictionary=dictionary, settings=settings, progress=progress)
+        return result, alignment
+    result = informed_transcription(y, sr, reference, alignment=alignment, instrument=instrument,
+                                    dictionary=dictionary, settings=settings, progress=progress)
+    return result, alignment
+
+
+def transcribe_file(
+    take_path,
+    *,
+    midi_path=None,
+    notes_path=None,
+    musicxml_path=None,
+    instrument=None,
+    score_path=None,
+    part=None,
+    dictionary_path=None,
+    tempo: float | None = None,
+    time_signature=None,
+    grid: str | None = None,
+    midi_type: int = 1,
+    quantized_midi: bool = False,
+    force: bool = False,
+    progress: Callable[[str], None] | None = None,
+) -> TranscribeOutputs:
+    """The ``transcribe`` job: a take (and optionally its part) to draft files.
+
+    Outputs are checked before any work (no overwrite without ``force``) and each is
+    written atomically. The MIDI draft keeps the performed timing (take seconds)
+    unless ``quantized_midi``, which writes the notated rhythm with a tempo map that
+    follows the take, one track per staff.
+    """
+    outputs = [midi_path, notes_path, musicxml_path]
+    if not any(outputs):
+        raise InputError("nothing to write: give -o draft.mid, --notes draft.txt or --musicxml draft.musicxml")
+    _check_outputs(outputs, force=force)
+    _check_not_input(outputs, [take_path, score_path, dictionary_path])
+    preset = resolve_instrument(instrument) if instrument is not None else None
+    reference = load_reference(score_path, part=part) if score_path is not None else None
+    dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
+    y, sr = load_take(take_path, progress=progress)
+    result, alignment = transcribe_take(y, sr, instrument=preset, reference=reference, dictionary=dictionary,
+                                        progress=progress)
+    notation = None
+    if musicxml_path is not None or quantized_midi or reference is not None or tempo or time_signature:
+        if progress:
+            progress("notation: meter, quantization, key, staves")
+        notation = notate(
+            result.notes, reference=reference, alignment=alignment, y=y, sr=sr,
+            instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
+            tempo=tempo, time_signature=time_signature, grid=grid,
+        )
+    written = []
+    if midi_path is not None:
+        written.append(write_draft_midi(midi_path, result, notation=notation, midi_type=midi_type,
+                                        quantized=quantized_midi, force=force))
+    if notes_path is not None:
+        written.append(write_maps(result.notes, notes_path, force=force))
+    if musicxml_path is not None:
+        written.append(write_musicxml(notation, musicxml_path, force=force))
+    return TranscribeOutputs(result, written, reference, alignment, notation)
+
+
+def draft_midi_tracks(result: Transcription, *, notation=None, quantized: bool = False):
+    """Tracks, tempo map and time signatures of the draft MIDI file."""
+    if quantized and notation is not None:
+        tracks = [MidiTrack(name, tuple(notes), program=program) for name, notes, program in notation.midi_tracks()]
+        return tracks, notation.tempo_map(), notation.time_signature_map()
+    name = result.instrument.gm_name
+    tracks = [MidiTrack(f"{name} (takescribe draft)", tuple(result.notes), program=result.instrument.program)]
+    if notation is not None:
+        bpm = float(notation.grid.bpm * float(notation.grid.beat_quarters))
+        first = notation.grid.time_signatures[0]
+        return tracks, [(0.0, bpm)], [(0.0, int(first[1]), int(first[2]))]
+    return tracks, [(0.0, 120.0)], [(0.0, 4, 4)]
+
+
+def write_draft_midi(path, result: Transcription, *, notation=None, midi_type: int = 1, quantized: bool = False,
+                     force: bool = False) -> Path:
+    """Write the draft MIDI file (see :func:`draft_midi_tracks`)."""
+    tracks, tempo_map, time_signatures = draft_midi_tracks(result, notation=notation, quantized=quantized)
+    return write_midi(path, tracks, tempo_map=tempo_map, time_signatures=time_signatures, midi_type=midi_type,
+                      title="takescribe draft", force=force)
+
+
+def evaluate_files(estimate_path, reference_path, *, json_path=None, sustain: bool = False, part=None,
+                   force: bool = False) -> dict:
+    """The ``evaluate`` job: scores of one note list against another (any supported format)."""
+    _check_outputs([json_path], force=force)
+    _check_not_input([json_path], [estimate_path, reference_path])
+    estimate = read_notes(estimate_path, sustain=sustain)
+    reference = read_notes(reference_path, sustain=sustain, part=part)
+    scores = evaluate_notes(reference, estimate)
+    if json_path is not None:
+        write_text(json_path, json.dumps(scores, indent=2, sort_keys=True) + "\n", force=force)
+    return scores
+
+
+def learn_dictionary_file(recording_path, score_path, output_path, *, part=None, instrument=None,
+                          n_iter: int = 40, force: bool = False,
+                          progress: Callable[[str], None] | None = None) -> Dictionary:
+    """The ``dictionary learn`` job: templates for the user's own instrument.
+
+    The recording of a known passage (a chromatic scale is ideal: every pitch alone)
+    is aligned with its part; the aligned part becomes a tight mask on H, so each
+    template is fitted only where its pitch sounds. Only the partial amplitudes are
+    learned (templates stay harmonic); pitches the passage never plays keep the preset.
+    """
+    _check_outputs([output_path], force=force)
+    _check_not_input([output_path], [recording_path, score_path])
+    reference = load_reference(score_path, part=part)
+    if instrument is None:
+        instrument = reference.midi_program if reference.midi_program is not None else "piano"
+    y, sr = load_take(recording_path, progress=progress)
+    if progress:
+        progress("aligning the passage with its part")
+    alignment = align_reference(y, sr, reference)
+    spectrogram = compute_spectrogram(y, sr)
+    base = harmonic_dictionary(spectrogram, instrument=instrument)
+    mask = score_mask(reference, alignment, base.pitches, spectrogram.frame_times, floor=0.0, tolerance=0.08)
+    V, _ = normalize_spectrogram(spectrogram.V)
+    if progress:
+        progress("learning partial amplitudes")
+    fit = decompose(V, base.W, beta=1.0, n_iter=n_iter, mask=mask, mask_penalty=1.0)
+    H = fit.H * (mask > 0)
+    learned = adapt_dictionary(V, base, H, n_iter=n_iter, beta=1.0, min_activation=1e-3)
+    save_dictionary(learned, output_path, force=force)
+    return learned
+
+
+REPORT_FILES = ("report.html", "findings.json", "annotated.musicxml", "take.mid")
+
+
+@dataclass(frozen=True)
+class CompareOutputs:
+    """What :func:`compare_file` produced: the comparison, the transcription and the files."""
+
+    comparison: object
+    transcription: Transcription
+    alignment: object
+    reference: object
+    written: dict
+
+
+def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictionary: Dictionary | None = None,
+                 timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
+                 source: str = "the take", progress: Callable[[str], None] | None = None):
+    """Transcribe a loaded take with its part and compare them; returns ``(comparison, transcription, alignment)``.
+
+    Raises
+    ------
+    ScoreError
+        When the alignment confidence says the take is not this part (unless ``allow_mismatch``):
+        a page of wrong notes would wrong the student.
+    """
+    if progress:
+        progress("aligning the part with the take")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", AlignmentWarning)
+        alignment = align_reference(y, sr, reference)
+    if alignment.confidence < MISMATCH_CONFIDENCE and not allow_mismatch:
+        raise ScoreError(
+            f"{source}: does not seem to be a performance of {Path(reference.source).name or 'the part'}"
+            f" (alignment confidence {alignment.confidence:.2f}, below {MISMATCH_CONFIDENCE}); check that the take"
+            " and the part (--part) belong together, or pass --allow-mismatch to compare anyway"
+        )
+    result, _ = transcribe_take(y, sr, instrument=instrument, reference=reference, dictionary=dictionary,
+                                progress=progress, alignment=alignment)
+    if progress:
+        progress("comparing with the part")
+    # a piano or plucked note's sound decays by itself: where the transcription ends it says
+    # little about when the key was released, so lengths are not judged for such instruments
+    comparison = compare_notes(reference, alignment, result.notes, timing_tolerance=timing_tolerance,
+                               duration_tolerance=duration_tolerance,
+                               judge_durations=not result.instrument.decaying,
+                               faint_notes=faint_notes(result, reference, alignment), mask_partials=True)
+    return comparison, result, alignment
+
+
+def compare_file(take_path, score_path, output_folder, *, part=None, instrument=None, dictionary_path=None,
+                 timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
+                 force: bool = False, progress: Callable[[str], None] | None = None) -> CompareOutputs:
+    """The ``compare`` job: a take and its part to a practice report folder."""
+    folder = Path(output_folder)
+    _check_outputs([folder / name for name in REPORT_FILES], force=force)
+    _check_not_input([folder / name for name in REPORT_FILES], [take_path, score_path, dictionary_path])
+    reference = load_reference(score_path, part=part)
+    dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
+    y, sr = load_take(take_path, progress=progress)
+    comparison, result, alignment = compare_take(
+        y, sr, reference, instrument=instrument, dictionary=dictionary, timing_tolerance=timing_tolerance,
+        duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, source=str(take_path),
+        progress=progress)
+    tracks, tempo_map, time_signatures = draft_midi_tracks(result)
+    draft = midi_bytes(tracks, tempo_map=tempo_map, time_signatures=time_signatures, title="takescribe draft")
+    if progress:
+        progress("writing the report")
+    written = write_report(folder, comparison, reference, take_path=take_path, draft_notes=result.notes,
+                           draft_midi_bytes=draft, force=force)
+    return CompareOutputs(comparison, result, alignment, reference, written)
+
+
+def format_scores(scores: dict) -> str:
+    """A short human-readable table of :func:`takescribe.evaluate.evaluate_notes` scores."""
+    lines = [f"notes: {scores.get('n_reference', 0)} in the reference, {scores.get('n_estimate', 0)} in the estimate"]
+    for key, label in (("onset", "onset only"), ("onset_offset", "onset and offset")):
+        lines.append(
+            f"{label:17s} precision {scores[key + '.precision']:.3f}  recall {scores[key + '.recall']:.3f}  "
+            f"F-measure {scores[key + '.f_measure']:.3f}  overlap {scores[key + '.average_overlap_ratio']:.3f}")
+    lines.append(f"{'frames (10 ms)':17s} precision {scores['frame.precision']:.3f}  recall {scores['frame.recall']:.3f}  "
+                 f"accuracy {scores['frame.accuracy']:.3f}")
+    return "\n".join(lines)
+
+
+def format_comparison_summary(outputs: CompareOutputs) -> str:
+    """A few lines for the terminal after ``compare``."""
+    summary = outputs.comparison.summary
+    counts = summary.get("counts", {})
+    found = ", ".join(f"{n} {k.replace('_', ' ')}" for k, n in counts.items() if n) or "no findings"
+    report = outputs.written.get("report.html")
+    return (f"{summary.get('notes_played_correctly', '?')} of {summary.get('notes_in_part', '?')} notes played as"
+            f" written; {found}.\nOpen the report: {report}\n"
+            "Findings are suggestions for a teacher's judgement, not a grade.")

@@ -1,0 +1,2 @@
+"""The reference part: MusicXML (safe XML, .mxl) and MIDI parts as notes in score time."""
+
