@@ -14,6 +14,7 @@ from pathlib import Path
 
 import librosa
 import numpy as np
+from support.matching import f_measure, match_findings
 import pytest
 
 from takescribe.comparison.compare import KINDS, Comparison, compare_notes, findings_json, pitch_name
@@ -391,21 +392,10 @@ def test_restart_is_one_finding_with_linked_extras(alignment_follows):
 # --------------------------------------------------------------------------- many deviations at once
 
 
-def _finding_f_measure(found, injected, tolerance=0.25):
-    """Greedy one-to-one pairing by kind, pitch and time (within ``tolerance`` seconds)."""
-    used, hits = set(), 0
-    for d in injected:
-        for k, f in enumerate(found):
-            if k in used or f.kind != d["kind"] or abs(f.time - d["time"]) > tolerance:
-                continue
-            if d.get("pitch") is not None and d["pitch"] not in (f.expected_pitch, f.played_pitch):
-                continue
-            used.add(k)
-            hits += 1
-            break
-    precision = hits / len(found) if found else 1.0
-    recall = hits / len(injected) if injected else 1.0
-    return 0.0 if hits == 0 else 2 * precision * recall / (precision + recall)
+def _finding_f_measure(found, injected):
+    # the shared matching of findings to planted mistakes (tests/support/matching.py)
+    result = match_findings(found, injected)
+    return f_measure(result.hits, result.n_found, result.n_planted)[2]
 
 
 @pytest.mark.parametrize("seed", [1, 2, 3])
@@ -428,16 +418,16 @@ def test_random_deviations_are_found(seed):
             drop.add(k)
         elif kind == "extra":
             played.append(Note(n.onset + 0.5 * (n.offset - n.onset), n.offset, 84))
-            injected.append({"kind": "extra", "time": n.onset + 0.5 * (n.offset - n.onset), "pitch": 84})
+            injected.append({"kind": "extra", "time": n.onset + 0.5 * (n.offset - n.onset), "played_pitch": 84})
             continue
         elif kind in ("early", "late"):
             d = float(rng.uniform(0.15, 0.22)) * (-1 if kind == "early" else 1)
             played[k] = Note(n.onset + d, n.offset + d, n.pitch)
-            injected.append({"kind": kind, "time": n.onset + d, "pitch": n.pitch})
+            injected.append({"kind": kind, "time": n.onset + d, "expected_pitch": n.pitch})
             continue
         elif kind == "held_short":
             played[k] = Note(n.onset, n.onset + 0.3 * (n.offset - n.onset), n.pitch)
-        injected.append({"kind": kind, "time": n.onset, "pitch": ref.notes[k].pitch})
+        injected.append({"kind": kind, "time": n.onset, "expected_pitch": ref.notes[k].pitch})
     played = [n for k, n in enumerate(played) if k not in drop]
     result = compare_notes(ref, None, played)
     assert _finding_f_measure(list(result.findings), injected) >= 0.9, (
@@ -490,47 +480,21 @@ def ground_truth_comparisons():
     return out
 
 
-def _pairs_found(found, injected, tolerance=0.25):
-    """Injected deviations found: same kind, same pitch (where the deviation has one), time within 0.25 s."""
-    used, hits = set(), []
-    for d in injected:
-        pitch = d.get("played_pitch") if d["kind"] in ("extra", "wrong_pitch") else d.get("expected_pitch")
-        for k, f in enumerate(found):
-            if k in used or f.kind != d["kind"] or abs(f.time - d["time"]) > tolerance:
-                continue
-            if pitch is not None and pitch not in (f.expected_pitch, f.played_pitch):
-                continue
-            used.add(k)
-            hits.append(d)
-            break
-    return hits
-
-
-def _f_measure(hits: int, found: int, injected: int) -> float:
-    precision = hits / found if found else 1.0
-    recall = hits / injected if injected else 1.0
-    return 0.0 if precision + recall == 0 else 2 * precision * recall / (precision + recall)
-
-
 @pytest.mark.slow
 def test_findings_on_ground_truth_of_deviation_takes(ground_truth_comparisons):
     # targets from the project brief: F >= 0.90 overall, >= 0.85 per kind; a finding counts once
     # (notes linked to a restart or hesitation are details of that one event)
-    totals = Counter()
-    per_kind = {}
+    totals, per_kind = Counter(), {}
     for entry, result, injected in ground_truth_comparisons:
-        found = [f for f in result.findings if f.linked_to is None]
-        hits = _pairs_found(found, injected)
-        totals.update(hits=len(hits), found=len(found), injected=len(injected))
-        for kind in {d["kind"] for d in injected} | {f.kind for f in found}:
-            c = per_kind.setdefault(kind, Counter())
-            c.update(hits=sum(d["kind"] == kind for d in hits), found=sum(f.kind == kind for f in found),
-                     injected=sum(d["kind"] == kind for d in injected))
+        matched = match_findings(list(result.findings), injected)
+        totals.update(hits=matched.hits, found=matched.n_found, injected=matched.n_planted)
+        for kind, c in matched.counts().items():
+            per_kind.setdefault(kind, Counter()).update(c)
     assert totals["injected"] > 0
-    assert _f_measure(totals["hits"], totals["found"], totals["injected"]) >= 0.90, (totals, per_kind)
+    assert f_measure(totals["hits"], totals["found"], totals["injected"])[2] >= 0.90, (totals, per_kind)
     for kind, c in per_kind.items():
-        if c["injected"]:
-            assert _f_measure(c["hits"], c["found"], c["injected"]) >= 0.85, (kind, c)
+        if c["planted"]:
+            assert f_measure(c["hits"], c["found"], c["planted"])[2] >= 0.85, (kind, c)
 
 
 @pytest.mark.slow

@@ -22,25 +22,15 @@ from takescribe.jobs.pipeline import compare_take
 from takescribe.reference.part import load_reference
 
 from conftest import FIXTURES
+from support.matching import match_findings
 
 DEV = FIXTURES / "deviations"
 PIECES = ("dev_piano_waltz", "dev_violin_minuet")
-PITCHED = {"wrong_pitch": ("expected_pitch", "played_pitch"), "missed": ("expected_pitch",),
-           "extra": ("played_pitch",), "early": ("expected_pitch",), "late": ("expected_pitch",)}
 
 
-def _match(found, injected, tolerance=0.25):
-    used, hits = set(), 0
-    for d in injected:
-        candidates = [
-            (abs(f["time"] - d["time"]), j) for j, f in enumerate(found)
-            if j not in used and f["kind"] == d["kind"] and abs(f["time"] - d["time"]) <= tolerance
-            and all(f.get(key) == d.get(key) for key in PITCHED.get(d["kind"], ()))
-        ]
-        if candidates:
-            used.add(min(candidates)[1])
-            hits += 1
-    return hits
+def _match(found, injected):
+    """Hits of the shared matching of findings to planted mistakes (tests/support/matching.py)."""
+    return match_findings(found, injected).hits
 
 
 @pytest.fixture(scope="module")

@@ -31,30 +31,14 @@ from takescribe.jobs.pipeline import compare_take
 from takescribe.reference.part import load_reference
 
 ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT / "tests"))
+from support.matching import match_findings  # noqa: E402  (the one matching, shared with the tests)
 DEV = ROOT / "fixtures" / "deviations"
-TIME_TOLERANCE = 0.25
-PITCHED = {"wrong_pitch": ("expected_pitch", "played_pitch"), "missed": ("expected_pitch",),
-           "extra": ("played_pitch",), "early": ("expected_pitch",), "late": ("expected_pitch",)}
 
 
 def match(found, injected):
-    """Greedy one-to-one matching of findings to injected deviations (kind, pitch, time)."""
-    used = set()
-    hits = []
-    for i, d in enumerate(injected):
-        best = None
-        for j, f in enumerate(found):
-            if j in used or f["kind"] != d["kind"]:
-                continue
-            if any(f.get(key) != d.get(key) for key in PITCHED.get(d["kind"], ())):
-                continue
-            dt = abs(f["time"] - d["time"])
-            if dt <= TIME_TOLERANCE and (best is None or dt < best[0]):
-                best = (dt, j)
-        if best is not None:
-            used.add(best[1])
-            hits.append((i, best[1]))
-    return hits
+    """(planted index, finding index) pairs of the shared matching (tests/support/matching.py)."""
+    return list(match_findings(found, injected).pairs)
 
 
 def main(argv=None) -> int:
