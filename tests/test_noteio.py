@@ -8,7 +8,6 @@ below as an outside reader of what we write.
 
 from __future__ import annotations
 
-import importlib.util
 import tempfile
 from pathlib import Path
 
@@ -179,8 +178,6 @@ def test_read_notes_dispatch(tmp_path):
 
 
 def test_read_notes_musicxml():
-    if importlib.util.find_spec("takescribe.reference.part") is None:
-        pytest.skip("takescribe.reference.part (MusicXML reader) is not in the tree yet")
     from music21 import corpus
 
     from takescribe.reference.part import load_reference
