@@ -33,6 +33,14 @@ __all__ = [
     "EXIT_USAGE",
     "EXIT_INTERNAL",
     "EXIT_OUTPUT",
+    "TakescribeWarning",
+    "AudioWarning",
+    "ScoreWarning",
+    "AlignmentWarning",
+    "NotationWarning",
+    "ComparisonWarning",
+    "ReportWarning",
+    "EvaluationWarning",
 ]
 
 EXIT_OK = 0
@@ -72,3 +80,40 @@ class OutputError(TakescribeError, OSError):
     """An output cannot be written (exists without ``--force``, no permission)."""
 
     exit_code = EXIT_OUTPUT
+
+
+# --------------------------------------------------------------------------- warnings
+# One tree: ``warnings.filterwarnings("ignore", category=TakescribeWarning)`` silences every
+# warning the package gives on purpose, and each stage's class narrows it.
+
+
+class TakescribeWarning(UserWarning):
+    """Root of every warning takescribe gives on purpose (something the user should know)."""
+
+
+class AudioWarning(TakescribeWarning):
+    """The take can be used, but something in it limits what can be heard (rate, level, clipping)."""
+
+
+class ScoreWarning(TakescribeWarning):
+    """The part can be used, but some of it was skipped or interpreted (ornaments, unpitched notes)."""
+
+
+class AlignmentWarning(TakescribeWarning):
+    """The part and the take line up poorly (low confidence, pauses, jumps)."""
+
+
+class NotationWarning(TakescribeWarning):
+    """The draft notation had to simplify (meter guessed, values forced to the grid)."""
+
+
+class ComparisonWarning(TakescribeWarning):
+    """The comparison could judge less than usual (no notes heard, kinds not judged)."""
+
+
+class ReportWarning(TakescribeWarning):
+    """The report had to fall back (audio embedded at a lower quality, part rebuilt from notes)."""
+
+
+class EvaluationWarning(TakescribeWarning):
+    """A metric is undefined for the inputs (an empty reference or estimate)."""
