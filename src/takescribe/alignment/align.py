@@ -84,12 +84,12 @@ import warnings
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-import scipy.fft
-import scipy.sparse
-from scipy.ndimage import maximum_filter1d
 
-from ..audio.load import frames_segment, release_samples, validate_audio
+from ..audio.load import validate_audio
 from ..reference.part import Reference, validate_reference
+from .dtw import band_from_path, dtw, pool
+from .features import _default_hop, _render_reference, reference_features, take_features  # noqa: F401
+from .settings import SETTINGS
 
 __all__ = [
     "Alignment",
@@ -102,24 +102,15 @@ __all__ = [
     "MIN_PAUSE_SECONDS",
 ]
 
-MISMATCH_CONFIDENCE = 0.3
-MIN_PAUSE_SECONDS = 0.5
-PAUSE_COST = 0.1
-JUMP_SECONDS = 0.5
-UNALIGNED_COST = 1.5
-SKIP_COST = 0.25
-LOWEST_PITCH, HIGHEST_PITCH = 21, 108
-_SILENCE_DB = -40.0
-_COMPRESSION = 100.0
-_ONSET_DECAY_SECONDS = 0.2
-_LOCAL_NORM_SECONDS = 1.0
-_ENVELOPE_SECONDS = 1.5
-_LANDING_SECONDS = 0.1
-_NOISE_MARGIN = 4.0  # 6 dB in power
-_COVERAGE_FULL = 0.75
-_MAX_COARSE_CELLS = 16_000_000
-_CONFIDENCE_FRAMES = 1000
-_CONFIDENCE_GAIN = 2.0
+# the public names of 0.1, read from the settings (see :mod:`takescribe.alignment.settings`)
+MISMATCH_CONFIDENCE = SETTINGS.mismatch_confidence
+MIN_PAUSE_SECONDS = SETTINGS.min_pause_seconds
+PAUSE_COST = SETTINGS.pause_cost
+JUMP_SECONDS = SETTINGS.jump_seconds
+UNALIGNED_COST = SETTINGS.unaligned_cost
+SKIP_COST = SETTINGS.skip_cost
+
+
 
 
 class AlignmentWarning(UserWarning):
@@ -200,7 +191,7 @@ class Alignment:
         # the score times just before the landing belong to the new pass as well
         landings = np.flatnonzero(np.diff(s) < 0) + 1
         if landings.size:
-            lead = np.minimum(_LANDING_SECONDS, s[landings])
+            lead = np.minimum(SETTINGS.landing_seconds, s[landings])
             s = np.insert(s, landings, s[landings] - lead)
             t = np.insert(t, landings, t[landings] - lead)
         # the last pass over each score time: walk back from the end, keep new minima
@@ -264,372 +255,6 @@ class Alignment:
         return float(ratio) if ratio.ndim == 0 else ratio
 
 
-# --------------------------------------------------------------------------
-# features
-# --------------------------------------------------------------------------
-def _default_hop(sr: int) -> int:
-    """The power of two closest to 23 ms at ``sr`` (512 at 22050 Hz)."""
-    return int(2 ** round(np.log2(0.0232 * sr)))
-
-
-def _semitone_filterbank(sr: int, n_fft: int) -> np.ndarray:
-    """Triangular weights (n_pitches, n_bins) from FFT bins to MIDI pitches 21..108 (A4 = 440 Hz, ISO 16)."""
-    freqs = np.arange(n_fft // 2 + 1) * sr / n_fft
-    with np.errstate(divide="ignore"):
-        midi = 69.0 + 12.0 * np.log2(np.maximum(freqs, 1e-6) / 440.0)
-    pitches = np.arange(LOWEST_PITCH, HIGHEST_PITCH + 1)[:, None]
-    fb = np.maximum(0.0, 1.0 - np.abs(midi[None, :] - pitches))
-    fb[:, freqs < 20.0] = 0.0
-    return fb.astype(np.float32)
-
-
-def _pitch_energy(y: np.ndarray, sr: int, *, n_fft: int, hop_length: int, block: int = 512) -> np.ndarray:
-    """Power per MIDI pitch (n_pitches, n_frames), centred frames, computed in blocks to bound memory."""
-    fb = _semitone_filterbank(sr, n_fft)
-    used = int(np.flatnonzero(fb.any(axis=0)).max()) + 1  # bins above the highest pitch are not needed
-    fb_sparse = scipy.sparse.csr_matrix(fb[:, :used])
-    window = np.hanning(n_fft + 1)[:-1].astype(np.float32)
-    n_frames = 1 + len(y) // hop_length
-    out = np.empty((fb.shape[0], n_frames), dtype=np.float32)
-    for start in range(0, n_frames, block):
-        stop = min(start + block, n_frames)
-        segment = frames_segment(y, start, stop, hop_length=hop_length, n_fft=n_fft)
-        frames = np.lib.stride_tricks.sliding_window_view(segment, n_fft)[::hop_length]
-        spec = scipy.fft.rfft(frames * window, axis=1, workers=-1)[:, :used]
-        power = np.square(spec.real) + np.square(spec.imag)
-        out[:, start:stop] = (fb_sparse @ power.T).astype(np.float32)
-    release_samples(y)
-    return out
-
-
-def _render_reference(reference: Reference, sr: int, hop_length: int, n_frames: int,
-                      n_ffts: tuple[int, ...], *, block_frames: int = 4096) -> list[np.ndarray]:
-    """Pitch energy of the part from harmonic templates, one array per analysis window length.
-
-    Each note is an envelope (exponential decay while held, fast release after) on a grid
-    four times finer than the frames, spread over the pitches of its first eight partials;
-    the sum is smoothed with the squared analysis window (the time response of a power
-    spectrogram) and sampled at the frame centres. The fine grid is built ``block_frames``
-    frames at a time (with the window's reach on each side), so memory does not grow
-    with the length of the part beyond the result itself.
-    """
-    sub = 4
-    dt = hop_length / sr / sub
-    n_sub = n_frames * sub
-    n_pitches = HIGHEST_PITCH - LOWEST_PITCH + 1
-    release = 0.1
-    harmonics = np.arange(1, 9)
-    # each note's span on the fine grid and its weight per pitch row
-    spans, note_rows, note_weights, helds = [], [], [], []
-    for note in reference.notes:
-        start = int(round(note.onset / dt))
-        stop = min(int(round((note.offset + 3 * release) / dt)), n_sub)
-        weights = np.zeros(n_pitches, dtype=np.float32)
-        position = note.pitch + 12.0 * np.log2(harmonics) - LOWEST_PITCH
-        low = np.floor(position).astype(int)
-        frac = position - low
-        for bins, share in ((low, 1.0 - frac), (low + 1, frac)):
-            ok = (bins >= 0) & (bins < n_pitches)
-            np.add.at(weights, bins[ok], (share / harmonics)[ok])
-        rows = np.flatnonzero(weights)
-        spans.append((start, stop) if start < n_sub and stop > start else (0, 0))
-        note_rows.append(rows)
-        note_weights.append(weights[rows, None])
-        helds.append(note.offset - note.onset)
-    starts = np.array([a for a, _ in spans], dtype=np.int64)
-    stops = np.array([b for _, b in spans], dtype=np.int64)
-    kernels = []
-    for n_fft in n_ffts:
-        # smoothing with the squared window, evaluated only at the frame centres
-        taps = max(int(round(n_fft / (hop_length / sub))), 1)
-        kernel = np.hanning(taps + 2)[1:-1] ** 2
-        kernel /= kernel.sum()
-        kernels.append((kernel, taps // 2))
-    before = max(half for _, half in kernels)
-    after = max(len(kernel) - half for kernel, half in kernels)
-    out = [np.zeros((n_pitches, n_frames), dtype=np.float32) for _ in n_ffts]
-    for a in range(0, n_frames, block_frames):
-        b = min(a + block_frames, n_frames)
-        lo, hi = a * sub - before, (b - 1) * sub + after + 1
-        energy = np.zeros((n_pitches, hi - lo), dtype=np.float32)
-        for i in np.flatnonzero((starts < hi) & (stops > lo) & (stops > starts)):
-            s0, s1 = max(starts[i], lo), min(stops[i], hi)
-            t = np.arange(s0 - starts[i], s1 - starts[i]) * dt
-            held = helds[i]
-            env = (np.exp(-t / _ENVELOPE_SECONDS) * np.where(t > held, np.exp(-(t - held) / release), 1.0)
-                   ).astype(np.float32)
-            energy[note_rows[i], s0 - lo:s1 - lo] += note_weights[i] * env[None, :]
-        for (kernel, half), smooth in zip(kernels, out):
-            block = smooth[:, a:b]
-            for k, w in enumerate(kernel):
-                # frame n takes energy[n * sub + k - half] * kernel[k] (zero outside the part)
-                first = a * sub + k - half - lo
-                block += np.float32(w) * energy[:, first:first + (b - a) * sub:sub][:, :b - a]
-    return out
-
-
-def _chroma_and_onsets(energy_chroma: np.ndarray, energy_onset: np.ndarray, frame_rate: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Chroma (n_frames, 12), decaying onset chroma (n_frames, 12) and a sounding mask (n_frames,).
-
-    A frame sounds when it is within 40 dB of the loud frames (else its chroma is the
-    uniform "rest" vector). When the quietest frames (5th percentile) lie at least
-    15 dB under the loud ones, they are taken as the noise floor of the room and frames
-    less than 6 dB above it count as silence too, so steady noise before and after the
-    playing is not mistaken for music.
-    """
-    n_frames = energy_chroma.shape[1]
-    total = energy_chroma.sum(axis=0)
-    ref = float(np.percentile(total, 99)) if total.size else 0.0
-    if ref <= 0:
-        ref = 1.0
-    sounding = total > ref * 10 ** (_SILENCE_DB / 10)
-    classes = [(np.arange(energy_chroma.shape[0]) + LOWEST_PITCH) % 12 == c for c in range(12)]
-    step = 8192  # frames at a time: the compressed energies never exist for the whole take at once
-    folded = np.zeros((12, n_frames), dtype=np.float32)
-    for a in range(0, n_frames, step):
-        logc = np.log1p(_COMPRESSION * energy_chroma[:, a:a + step] / ref)
-        for c in range(12):
-            folded[c, a:a + step] = logc[classes[c]].sum(axis=0)
-    norm = np.linalg.norm(folded, axis=0)
-    chroma = np.where(sounding[None, :] & (norm[None, :] > 0), folded / np.maximum(norm, 1e-12)[None, :],
-                      np.float32(1 / np.sqrt(12)))
-
-    total_o = energy_onset.sum(axis=0)
-    ref_o = float(np.percentile(total_o, 99)) if total_o.size else 0.0
-    if ref_o <= 0:
-        ref_o = 1.0
-    onset = np.zeros((12, n_frames), dtype=np.float32)
-    previous = 0.0  # sound at frame 0 is an onset
-    for a in range(0, n_frames, step):
-        logo = np.log1p(_COMPRESSION * energy_onset[:, a:a + step] / ref_o)
-        rise = np.maximum(0.0, np.diff(logo, axis=1, prepend=previous))
-        previous = logo[:, -1:]
-        for c in range(12):
-            onset[c, a:a + step] = rise[classes[c]].sum(axis=0)
-    onorm = np.linalg.norm(onset, axis=0)
-    local = maximum_filter1d(onorm, size=max(3, int(2 * _LOCAL_NORM_SECONDS * frame_rate) | 1))
-    floor = 0.05 * float(np.percentile(onorm, 99)) if onorm.size else 0.0
-    onset = onset / np.maximum(local, max(floor, 1e-12))[None, :]
-    n_decay = max(2, int(round(_ONSET_DECAY_SECONDS * frame_rate)))
-    weights = np.sqrt(np.linspace(1.0, 0.0, n_decay, endpoint=False))
-    decayed = onset.copy()
-    for k in range(1, n_decay):
-        decayed[:, k:] = np.maximum(decayed[:, k:], onset[:, :-k] * weights[k])
-    floor = float(np.percentile(total, 5))
-    above_floor = total > _NOISE_MARGIN * floor if floor < ref * 10 ** (-15 / 10) else np.ones_like(sounding)
-    return (np.ascontiguousarray(chroma.T, dtype=np.float32), np.ascontiguousarray(decayed.T, dtype=np.float32),
-            sounding & above_floor)
-
-
-def take_features(y: np.ndarray, sr: int, *, hop_length: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Chroma (n_frames, 12), decaying onset chroma (n_frames, 12) and sounding mask of a take.
-
-    Frame ``n`` is centred on ``n * hop_length / sr`` seconds.
-    """
-    hop_length = hop_length or _default_hop(sr)
-    n_fft_chroma = 8 * hop_length
-    n_fft_onset = 4 * hop_length
-    e_chroma = _pitch_energy(y, sr, n_fft=n_fft_chroma, hop_length=hop_length)
-    e_onset = _pitch_energy(y, sr, n_fft=n_fft_onset, hop_length=hop_length)
-    return _chroma_and_onsets(e_chroma, e_onset, sr / hop_length)
-
-
-def reference_features(reference: Reference, sr: int, *,
-                       hop_length: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The same features as :func:`take_features`, rendered from the part's notes at the written tempo."""
-    hop_length = hop_length or _default_hop(sr)
-    end = max(n.offset for n in reference.notes) + 0.3
-    n_frames = int(np.ceil(end * sr / hop_length)) + 1
-    e_chroma, e_onset = _render_reference(reference, sr, hop_length, n_frames, (8 * hop_length, 4 * hop_length))
-    return _chroma_and_onsets(e_chroma, e_onset, sr / hop_length)
-
-
-# --------------------------------------------------------------------------
-# dynamic programming
-# --------------------------------------------------------------------------
-_START, _DIAG, _FAST, _SLOW, _PAUSE, _JUMP = range(6)
-
-
-def _pool(features: np.ndarray, factor: int, *, how: str) -> np.ndarray:
-    n = features.shape[0]
-    m = -(-n // factor)
-    pad = np.concatenate([features, np.repeat(features[-1:], m * factor - n, axis=0)]) if m * factor > n else features
-    blocks = pad.reshape(m, factor, -1)
-    if how == "max":
-        return blocks.max(axis=1)
-    pooled = blocks.sum(axis=1)
-    return pooled / np.maximum(np.linalg.norm(pooled, axis=1, keepdims=True), 1e-12)
-
-
-def _landing_cost(score_onset: np.ndarray, jump_penalty: float) -> np.ndarray:
-    """Extra jump cost per score frame: none on a note onset, half the jump penalty elsewhere.
-
-    A player who goes back starts again on a note, so a jump should land on an onset.
-    """
-    norm = np.linalg.norm(score_onset, axis=1)
-    rise = np.clip(np.diff(norm, prepend=0.0), 0.0, None)
-    rise = maximum_filter1d(rise, size=3) / max(float(rise.max()), 1e-12)
-    return 0.5 * jump_penalty * (1.0 - np.clip(rise * 2.0, 0.0, 1.0))
-
-
-def _dtw(score_chroma, score_onset, take_chroma, take_onset, take_sounding, lo, hi, *, frame_rate: float,
-         onset_weight: float = 1.0, block: int = 256, allow_jump: np.ndarray | None = None,
-         allow_end: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, float]:
-    """Banded DTW with pauses, jumps back and free ends; returns (rows, cols, total cost).
-
-    ``lo[j]:hi[j]`` are the score rows allowed at take column ``j``; ``allow_jump[j]`` and
-    ``allow_end[j]`` (default everywhere) say where a jump back may arrive and where the
-    path may end (the fine pass allows them only near the coarse path's). Costs are
-    computed a block of columns at a time (one matrix product per block), so
-    memory stays proportional to the band.
-    """
-    n_rows = score_chroma.shape[0]
-    n_cols = take_chroma.shape[0]
-    inf = np.inf
-    jump_penalty = JUMP_SECONDS * frame_rate
-    sounding = np.asarray(take_sounding, dtype=float)
-    pre = np.concatenate([[0.0], np.cumsum(UNALIGNED_COST * sounding)[:-1]])
-    post = (UNALIGNED_COST * sounding)[::-1].cumsum()[::-1] - UNALIGNED_COST * sounding
-    skip_before = SKIP_COST * np.arange(n_rows, dtype=float)
-    skip_after = SKIP_COST * (n_rows - 1 - np.arange(n_rows, dtype=float))
-    s_chroma = score_chroma.astype(np.float64)
-    s_onset = score_onset.astype(np.float64)
-    so_sq = (s_onset**2).sum(axis=1)
-    landing = _landing_cost(s_onset, jump_penalty)
-
-    pad = 2
-    prev1 = np.full(n_rows + pad, inf)
-    prev2 = np.full(n_rows + pad, inf)
-    band1 = (0, 0)
-    band2 = (0, 0)
-    codes: list[np.ndarray] = []
-    sources: dict[int, np.ndarray] = {}  # jump columns: record rows of the previous column
-    best_end = (inf, -1, -1)
-    cands = np.empty((6, n_rows))
-    positions = np.arange(n_rows)
-    if allow_jump is None:
-        allow_jump = np.ones(n_cols, dtype=bool)
-    if allow_end is None:
-        allow_end = np.ones(n_cols, dtype=bool)
-    block_cost = None
-    block_lo = 0
-    for j in range(n_cols):
-        if j % block == 0:
-            stop = min(j + block, n_cols)
-            block_lo = int(lo[j:stop].min())
-            block_hi = int(hi[j:stop].max())
-            tc = take_chroma[j:stop].astype(np.float64)
-            to = take_onset[j:stop].astype(np.float64)
-            cross = s_onset[block_lo:block_hi] @ to.T
-            dist = so_sq[block_lo:block_hi, None] + (to**2).sum(axis=1)[None, :] - 2.0 * cross
-            block_cost = (1.0 - s_chroma[block_lo:block_hi] @ tc.T) + onset_weight * np.sqrt(np.maximum(dist, 0.0))
-            block_cost = np.ascontiguousarray(block_cost.T)
-        l, h = int(lo[j]), int(hi[j])
-        n = h - l
-        c = block_cost[j % block, l - block_lo:h - block_lo]
-        cand = cands[:, :n]
-        np.add(pre[j] + skip_before[l:h], c, out=cand[_START])
-        if j < 2:
-            cand[_DIAG:] = inf
-        if j >= 1:
-            np.add(prev1[l + pad - 1:h + pad - 1], c, out=cand[_DIAG])
-            np.add(prev1[l + pad - 2:h + pad - 2], c, out=cand[_FAST])
-            np.add(prev1[l + pad:h + pad], c + PAUSE_COST, out=cand[_PAUSE])
-            lp, hp = band1
-            if hp > lp and allow_jump[j]:
-                vals = prev1[lp + pad:hp + pad]
-                rev = vals[::-1]
-                acc = np.minimum.accumulate(rev)
-                q = np.clip(np.arange(l + 1, h + 1) - lp, 0, None)
-                valid = q < rev.size
-                suffix_min = acc[::-1]
-                qc = np.minimum(q, rev.size - 1)
-                cand[_JUMP] = np.where(valid, suffix_min[qc], inf) + (jump_penalty + c) + landing[l:h]
-            else:
-                cand[_JUMP] = inf
-        if j >= 2:
-            cand[_SLOW] = prev2[l + pad - 1:h + pad - 1] + 2.0 * c
-        code = np.argmin(cand, axis=0).astype(np.int8)
-        best = cand[code, positions[:n]]
-        if j >= 1 and band1[1] > band1[0] and allow_jump[j]:
-            jumped = code == _JUMP
-            if jumped.any():
-                lp, hp = band1
-                vals = prev1[lp + pad:hp + pad]
-                # the minimum of vals[p:] sits at the first "record from the end" at or after p
-                # (a value <= every later one); records are few, so they are all we keep
-                rev = vals[::-1]
-                acc = np.minimum.accumulate(rev)
-                records = (rev.size - 1 - np.flatnonzero(rev <= acc))[::-1].astype(np.int32) + lp
-                sources[j] = records
-        # roll the column buffers, clearing only the band that was written two columns ago
-        lp2, hp2 = band2
-        prev2[lp2 + pad:hp2 + pad] = inf
-        prev2, prev1 = prev1, prev2
-        band2, band1 = band1, (l, h)
-        prev1[l + pad:h + pad] = best
-        codes.append(code)
-        if allow_end[j]:
-            end_cost = best + skip_after[l:h] + post[j]
-            k = int(np.argmin(end_cost))
-            if end_cost[k] < best_end[0]:
-                best_end = (float(end_cost[k]), l + k, j)
-    total, i, j = best_end
-    if not np.isfinite(total):
-        return np.zeros(0, dtype=int), np.zeros(0, dtype=int), float("inf")
-    rows_out, cols_out = [], []
-    while True:
-        rows_out.append(i)
-        cols_out.append(j)
-        code = codes[j][i - int(lo[j])]
-        if code == _START:
-            break
-        if code == _DIAG:
-            i, j = i - 1, j - 1
-        elif code == _FAST:
-            i, j = i - 2, j - 1
-        elif code == _SLOW:
-            i, j = i - 1, j - 2
-        elif code == _PAUSE:
-            j = j - 1
-        else:
-            records = sources[j]
-            i, j = int(records[np.searchsorted(records, i + 1)]), j - 1
-    return np.array(rows_out[::-1]), np.array(cols_out[::-1]), total
-
-
-def _band_from_path(rows_c, cols_c, factor: int, n_rows: int, n_cols: int, radius: int) -> tuple[np.ndarray, np.ndarray]:
-    """Fine-resolution row band around a coarse path (``radius`` fine frames each side)."""
-    n_cols_c = -(-n_cols // factor)
-    low_c = np.full(n_cols_c, np.iinfo(np.int64).max)
-    high_c = np.full(n_cols_c, -1)
-    np.minimum.at(low_c, cols_c, rows_c)
-    np.maximum.at(high_c, cols_c, rows_c)
-    # columns the coarse path skipped ((1,2) steps, before its start, after its end) borrow from neighbours
-    visited = high_c >= 0
-    if not visited.any():
-        return np.zeros(n_cols, dtype=int), np.full(n_cols, n_rows)
-    pos = np.flatnonzero(visited)
-    nearest_before = np.maximum.accumulate(np.where(visited, np.arange(n_cols_c), -1))
-    nearest_after = np.minimum.accumulate(np.where(visited, np.arange(n_cols_c), n_cols_c)[::-1])[::-1]
-    nb = np.where(nearest_before >= 0, nearest_before, pos[0])
-    na = np.where(nearest_after < n_cols_c, nearest_after, pos[-1])
-    low_c = np.minimum(low_c[nb], low_c[na])
-    high_c = np.maximum(high_c[nb], high_c[na])
-    # widen by one coarse column either side
-    low_c = np.minimum(low_c, np.minimum(np.r_[low_c[1:], low_c[-1]], np.r_[low_c[0], low_c[:-1]]))
-    high_c = np.maximum(high_c, np.maximum(np.r_[high_c[1:], high_c[-1]], np.r_[high_c[0], high_c[:-1]]))
-    # outside the path's span (silence before and after) the path may start or end anywhere near its ends
-    first, last = pos[0], pos[-1]
-    low_c[:first] = 0
-    high_c[last + 1:] = high_c[last]
-    col_c = np.arange(n_cols) // factor
-    lo = np.clip(low_c[col_c] * factor - radius, 0, n_rows)
-    hi = np.clip((high_c[col_c] + 1) * factor + radius, 0, n_rows)
-    hi = np.maximum(hi, lo + 1)
-    return lo.astype(int), hi.astype(int)
-
-
 def _path_similarity(score_chroma, take_chroma, rows, cols) -> float:
     if rows.size == 0:
         return 0.0
@@ -640,11 +265,11 @@ def _confidence(similarity: float, null_similarity: float) -> float:
     """Map the path similarity and the best transposed similarity to 0..1.
 
     ``(s - s_null) / (1 - s_null)`` is the share of the distance to a perfect match that the
-    true part gains over the best wrong transposition; :data:`_CONFIDENCE_GAIN` scales it so
+    true part gains over the best wrong transposition; ``confidence_gain`` (:mod:`~takescribe.alignment.settings`) scales it so
     that a clear match saturates at 1.
     """
     gain = (similarity - null_similarity) / max(1.0 - null_similarity, 1e-6)
-    return float(np.clip(gain * _CONFIDENCE_GAIN, 0.0, 1.0))
+    return float(np.clip(gain * SETTINGS.confidence_gain, 0.0, 1.0))
 
 
 def _pauses_between_onsets(alignment: "Alignment", onsets: np.ndarray) -> list[AlignmentSegment]:
@@ -663,7 +288,8 @@ def _pauses_between_onsets(alignment: "Alignment", onsets: np.ndarray) -> list[A
         if any(take[k] - 1e-9 <= t_jump <= take[k + 1] + 1e-9 for t_jump in jumps):
             continue  # the gap straddles a restart: not a pause
 
-        neighbours = np.r_[ratio[max(0, k - 4):k], ratio[k + 1:k + 5]]
+        reach = SETTINGS.pause_neighbours
+        neighbours = np.r_[ratio[max(0, k - reach):k], ratio[k + 1:k + 1 + reach]]
         local = float(np.median(neighbours)) if neighbours.size else alignment.overall_ratio
         excess = d_take[k] - local * d_score[k]
         if excess >= MIN_PAUSE_SECONDS:
@@ -754,60 +380,20 @@ def align_reference(
     validate_audio(y, sr)
     validate_reference(reference)
     hop_length = hop_length or _default_hop(sr)
-    if isinstance(hop_length, bool) or not isinstance(hop_length, (int, np.integer)) or hop_length < 16:
-        raise ValueError(f"hop_length must be an integer number of samples >= 16, got {hop_length!r}")
-    if not isinstance(coarse_factor, (int, np.integer)) or not 1 <= coarse_factor <= 64:
-        raise ValueError(f"coarse_factor must be an integer in range 1..64, got {coarse_factor!r}")
-    if not band_radius > 0:
-        raise ValueError(f"band_radius must be a positive number of seconds, got {band_radius!r}")
+    _validate_options(hop_length, coarse_factor, band_radius)
     frame_rate = sr / hop_length
-
-    t_chroma, t_onset, t_sounding = take_features(y, sr, hop_length=hop_length)
-    s_chroma, s_onset, _ = reference_features(reference, sr, hop_length=hop_length)
-    n_rows, n_cols = s_chroma.shape[0], t_chroma.shape[0]
-
-    def pooled_path(factor, score_chroma, score_onset, take):
-        sc, so = _pool(score_chroma, factor, how="sum"), _pool(score_onset, factor, how="max")
-        tc, to, ts = take
-        m_rows, m_cols = sc.shape[0], tc.shape[0]
-        rows, cols, _ = _dtw(sc, so, tc, to, ts, np.zeros(m_cols, dtype=int), np.full(m_cols, m_rows),
-                             frame_rate=frame_rate / factor, onset_weight=onset_weight)
-        return rows, cols, _path_similarity(sc, tc, rows, cols)
-
-    def pooled_take(factor):
-        return (_pool(t_chroma, factor, how="sum"), _pool(t_onset, factor, how="max"),
-                _pool(t_sounding[:, None].astype(float), factor, how="max")[:, 0])
-
-    # the full-matrix pass stays under _MAX_COARSE_CELLS cells however long the take and part
-    coarse_factor = max(int(coarse_factor), int(np.ceil(np.sqrt(n_rows * n_cols / _MAX_COARSE_CELLS))))
-    coarse_take = pooled_take(coarse_factor)
-    rows_c, cols_c, sim_coarse = pooled_path(coarse_factor, s_chroma, s_onset, coarse_take)
-
-    # confidence: the part against itself transposed by 1..11 semitones (a rolled chroma is an
-    # exact transposition), each aligned by the same programme on frames of at most
-    # _CONFIDENCE_FRAMES per take so that the twelve passes stay cheap
-    factor = max(coarse_factor, int(np.ceil(n_cols / _CONFIDENCE_FRAMES)))
-    conf_take = coarse_take if factor == coarse_factor else pooled_take(factor)
-    sims = [sim_coarse if factor == coarse_factor else pooled_path(factor, s_chroma, s_onset, conf_take)[2]]
-    for k in range(1, 12):
-        sims.append(pooled_path(factor, np.roll(s_chroma, k, axis=1), np.roll(s_onset, k, axis=1), conf_take)[2])
-    similarity, null_similarity = float(sims[0]), float(max(sims[1:]))
-
-    if rows_c.size >= 2:
-        radius = int(round(band_radius * frame_rate))
-        lo, hi = _band_from_path(rows_c, cols_c, coarse_factor, n_rows, n_cols, radius)
-        # at the full frame rate, jumps and the end are searched only near the coarse path's
-        near = np.zeros(-(-n_cols // coarse_factor), dtype=bool)
-        for c in np.r_[cols_c[1:][np.diff(rows_c) < 0], cols_c[-1]]:
-            near[max(c - 2, 0):c + 3] = True
-        near_fine = near[np.arange(n_cols) // coarse_factor]
-        near_end = np.zeros_like(near)
-        near_end[max(cols_c[-1] - 2, 0):] = True
-        rows, cols, _ = _dtw(s_chroma, s_onset, t_chroma, t_onset, t_sounding.astype(float), lo, hi,
-                             frame_rate=frame_rate, onset_weight=onset_weight, allow_jump=near_fine,
-                             allow_end=near_end[np.arange(n_cols) // coarse_factor])
-    else:
-        rows, cols = rows_c, cols_c
+    take = take_features(y, sr, hop_length=hop_length)
+    score = reference_features(reference, sr, hop_length=hop_length)
+    n_rows, n_cols = score[0].shape[0], take[0].shape[0]
+    # the full-matrix pass stays under max_coarse_cells cells however long the take and part
+    coarse_factor = max(int(coarse_factor), int(np.ceil(np.sqrt(n_rows * n_cols / SETTINGS.max_coarse_cells))))
+    coarse_take = _pooled_take(take, coarse_factor)
+    rows_c, cols_c, sim_coarse = _pooled_path(coarse_factor, score[0], score[1], coarse_take,
+                                              frame_rate=frame_rate, onset_weight=onset_weight)
+    similarity, null_similarity = _similarities(score, take, coarse_take, coarse_factor, sim_coarse,
+                                                frame_rate=frame_rate, onset_weight=onset_weight)
+    rows, cols = _fine_path(score, take, rows_c, cols_c, coarse_factor, frame_rate=frame_rate,
+                            band_radius=band_radius, onset_weight=onset_weight)
     if rows.size < 2:
         # nothing aligned: fall back to the written tempo from the start of the take
         rows = np.array([0, n_rows - 1])
@@ -815,10 +401,11 @@ def align_reference(
         confidence = 0.0
     else:
         confidence = _confidence(similarity, null_similarity)
+    t_sounding = take[2]
     sounding_total = max(int(t_sounding.sum()), 1)
     coverage = float(t_sounding[cols[0]:cols[-1] + 1].sum()) / sounding_total if rows.size >= 2 else 0.0
     # a path that explains only a small part of what was played is no evidence of a match
-    confidence *= float(np.clip(coverage / _COVERAGE_FULL, 0.0, 1.0))
+    confidence *= float(np.clip(coverage / SETTINGS.coverage_full, 0.0, 1.0))
     frame_seconds = hop_length / sr
     path_segments = _segments(rows, cols, frame_seconds)
     alignment = Alignment(
@@ -837,3 +424,67 @@ def align_reference(
             AlignmentWarning, stacklevel=2,
         )
     return alignment
+
+
+def _validate_options(hop_length, coarse_factor, band_radius) -> None:
+    if isinstance(hop_length, bool) or not isinstance(hop_length, (int, np.integer)) or hop_length < 16:
+        raise ValueError(f"hop_length must be an integer number of samples >= 16, got {hop_length!r}")
+    if not isinstance(coarse_factor, (int, np.integer)) or not 1 <= coarse_factor <= 64:
+        raise ValueError(f"coarse_factor must be an integer in range 1..64, got {coarse_factor!r}")
+    if not band_radius > 0:
+        raise ValueError(f"band_radius must be a positive number of seconds, got {band_radius!r}")
+
+
+def _pooled_take(take, factor: int):
+    t_chroma, t_onset, t_sounding = take
+    return (pool(t_chroma, factor, how="sum"), pool(t_onset, factor, how="max"),
+            pool(t_sounding[:, None].astype(float), factor, how="max")[:, 0])
+
+
+def _pooled_path(factor, score_chroma, score_onset, take, *, frame_rate, onset_weight):
+    """Full-matrix path on frames ``factor`` times longer; (rows, cols, mean chroma similarity)."""
+    sc, so = pool(score_chroma, factor, how="sum"), pool(score_onset, factor, how="max")
+    tc, to, ts = take
+    m_rows, m_cols = sc.shape[0], tc.shape[0]
+    rows, cols, _ = dtw(sc, so, tc, to, ts, np.zeros(m_cols, dtype=int), np.full(m_cols, m_rows),
+                        frame_rate=frame_rate / factor, onset_weight=onset_weight)
+    return rows, cols, _path_similarity(sc, tc, rows, cols)
+
+
+def _similarities(score, take, coarse_take, coarse_factor, sim_coarse, *, frame_rate, onset_weight):
+    """Path similarity of the part, and the best of the part transposed by 1..11 semitones.
+
+    A rolled chroma is an exact transposition; each is aligned by the same programme on
+    frames of at most ``confidence_frames`` per take so that the twelve passes stay cheap.
+    """
+    s_chroma, s_onset, _ = score
+    n_cols = take[0].shape[0]
+    factor = max(coarse_factor, int(np.ceil(n_cols / SETTINGS.confidence_frames)))
+    conf_take = coarse_take if factor == coarse_factor else _pooled_take(take, factor)
+    kw = dict(frame_rate=frame_rate, onset_weight=onset_weight)
+    sims = [sim_coarse if factor == coarse_factor else _pooled_path(factor, s_chroma, s_onset, conf_take, **kw)[2]]
+    for k in range(1, 12):
+        sims.append(_pooled_path(factor, np.roll(s_chroma, k, axis=1), np.roll(s_onset, k, axis=1), conf_take, **kw)[2])
+    return float(sims[0]), float(max(sims[1:]))
+
+
+def _fine_path(score, take, rows_c, cols_c, coarse_factor, *, frame_rate, band_radius, onset_weight):
+    """The path at the full frame rate inside a band around the coarse path."""
+    if rows_c.size < 2:
+        return rows_c, cols_c
+    s_chroma, s_onset, _ = score
+    t_chroma, t_onset, t_sounding = take
+    n_rows, n_cols = s_chroma.shape[0], t_chroma.shape[0]
+    radius = int(round(band_radius * frame_rate))
+    lo, hi = band_from_path(rows_c, cols_c, coarse_factor, n_rows, n_cols, radius)
+    # at the full frame rate, jumps and the end are searched only near the coarse path's
+    near = np.zeros(-(-n_cols // coarse_factor), dtype=bool)
+    for c in np.r_[cols_c[1:][np.diff(rows_c) < 0], cols_c[-1]]:
+        near[max(c - 2, 0):c + 3] = True
+    near_fine = near[np.arange(n_cols) // coarse_factor]
+    near_end = np.zeros_like(near)
+    near_end[max(cols_c[-1] - 2, 0):] = True
+    rows, cols, _ = dtw(s_chroma, s_onset, t_chroma, t_onset, t_sounding.astype(float), lo, hi,
+                        frame_rate=frame_rate, onset_weight=onset_weight, allow_jump=near_fine,
+                        allow_end=near_end[np.arange(n_cols) // coarse_factor])
+    return rows, cols
