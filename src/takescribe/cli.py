@@ -1,12 +1,17 @@
 """Command line: parses arguments, calls :mod:`takescribe.pipeline`, reports; nothing else.
 
 Exit codes: 0 success, 1 bad input, 2 usage error, 3 internal error, 4 output
-refused (exists without ``--force``, or not writable), 130 interrupted.
+refused (exists without ``--force``, not writable, disk full), 130 interrupted by
+SIGINT (Ctrl-C), 143 by SIGTERM, 141 when the reader of the output went away
+(``takescribe evaluate ... | head``), quietly, as a program ended by SIGPIPE.
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
+import os
+import signal
 import sys
 import time
 import traceback
@@ -14,7 +19,9 @@ import warnings
 from pathlib import Path
 
 from . import __version__
-from .errors import EXIT_INTERNAL, EXIT_OK, EXIT_USAGE, TakescribeError
+from .errors import EXIT_INTERNAL, EXIT_OK, EXIT_USAGE, Interrupted, TakescribeError
+from .interrupts import arm_faults, handle_signals, signal_name
+from .safeio import committed_outputs, scratch_folder, write_error
 
 __all__ = ["main", "build_parser"]
 
@@ -166,6 +173,27 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
     raise AssertionError(f"unhandled command {args.command}")
 
 
+def _interrupted_message(exc: KeyboardInterrupt) -> str:
+    """What an interruption left on disk, as the run knows it."""
+    name = signal_name(getattr(exc, "signum", signal.SIGINT))
+    note = getattr(exc, "note", None)
+    if note is None:
+        kept = committed_outputs()
+        note = ("outputs finished before it are kept: " + ", ".join(str(p) for p in kept) if kept else
+                "nothing was written: no partial output and no temporary file is left")
+    return f"takescribe: interrupted by {name}; {note}"
+
+
+def _quiet_broken_pipe() -> int:
+    """The reader of stdout went away: stop quietly, as a program ended by SIGPIPE does."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())  # Python docs, "Note on SIGPIPE": no error at exit
+    except (OSError, ValueError):
+        pass
+    return 128 + signal.SIGPIPE
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``takescribe`` console script; returns the exit code."""
     parser = build_parser()
@@ -177,24 +205,41 @@ def main(argv: list[str] | None = None) -> int:
     debug = getattr(args, "debug", False)
     previous = warnings.showwarning
     warnings.showwarning = _show_warning
+    arm_faults()
     try:
-        return _run(args, progress)
+        with handle_signals(), scratch_folder():
+            return _run(args, progress)
+    except BrokenPipeError:
+        return _quiet_broken_pipe()
     except TakescribeError as exc:
         if debug:
             traceback.print_exc()
         print(f"takescribe: error: {exc}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("takescribe: interrupted; no partial output was left behind", file=sys.stderr)
-        return 130
-    except Exception as exc:  # a bug: say so plainly, keep the traceback behind --debug
+    except KeyboardInterrupt as exc:
+        print(_interrupted_message(exc), file=sys.stderr)
+        return exc.exit_code if isinstance(exc, Interrupted) else 128 + signal.SIGINT
+    except OSError as exc:
+        if exc.errno not in (errno.ENOSPC, errno.EDQUOT, errno.EROFS):
+            return _internal_error(exc, debug)
         if debug:
             traceback.print_exc()
-        print(f"takescribe: internal error ({type(exc).__name__}: {exc}); rerun with --debug and report it",
-              file=sys.stderr)
-        return EXIT_INTERNAL
+        error = write_error(exc.filename or "output", exc)
+        print(f"takescribe: error: {error}", file=sys.stderr)
+        return error.exit_code
+    except Exception as exc:  # a bug: say so plainly, keep the traceback behind --debug
+        return _internal_error(exc, debug)
     finally:
         warnings.showwarning = previous
+
+
+def _internal_error(exc: BaseException, debug: bool) -> int:
+    """A bug: say so plainly, keep the traceback behind --debug."""
+    if debug:
+        traceback.print_exc()
+    print(f"takescribe: internal error ({type(exc).__name__}: {exc}); rerun with --debug and report it",
+          file=sys.stderr)
+    return EXIT_INTERNAL
 
 
 if __name__ == "__main__":  # pragma: no cover

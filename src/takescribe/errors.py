@@ -14,7 +14,9 @@ code  meaning
 2     usage error (unknown option, missing argument; argparse)
 3     internal error (a bug: please report it with ``--debug``)
 4     output refused (the file exists and ``--force`` was not given,
-      or the folder cannot be written)
+      or the folder cannot be written, or the disk is full)
+130   interrupted by SIGINT (Ctrl-C)
+143   interrupted by SIGTERM
 ====  ==========================================================
 """
 
@@ -41,6 +43,7 @@ __all__ = [
     "ComparisonWarning",
     "ReportWarning",
     "EvaluationWarning",
+    "Interrupted",
 ]
 
 EXIT_OK = 0
@@ -117,3 +120,26 @@ class ReportWarning(TakescribeWarning):
 
 class EvaluationWarning(TakescribeWarning):
     """A metric is undefined for the inputs (an empty reference or estimate)."""
+
+
+class Interrupted(KeyboardInterrupt):
+    """SIGINT or SIGTERM arrived: the run stops, cleaning up as it unwinds.
+
+    A :class:`KeyboardInterrupt` (not an :class:`Exception`), so no ``except Exception``
+    of a job swallows it; the exit code is the shell's ``128 + signal number``.
+
+    Attributes
+    ----------
+    signum : int
+    note : str or None
+        What is on disk after the interruption, set by the job that knows it.
+    """
+
+    def __init__(self, signum: int, note: str | None = None) -> None:
+        super().__init__(signum)
+        self.signum = int(signum)
+        self.note = note
+
+    @property
+    def exit_code(self) -> int:
+        return 128 + self.signum

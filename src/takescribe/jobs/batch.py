@@ -9,13 +9,21 @@ Method
   ``notes.txt`` (MAPS-style note list) and, with a part, the practice report of
   :func:`takescribe.pipeline.compare_file` (:data:`takescribe.pipeline.REPORT_FILES`);
   the draft then comes from the same score-informed transcription as the report.
+- **All or nothing per take**: a take's folder is written as a staging folder
+  beside it and renamed into place when complete (:func:`takescribe.safeio.staged_outputs`),
+  so a take folder on disk always holds all its outputs.
 - **Resumable**: a take is finished when all its outputs exist; finished takes are
-  skipped unless ``force``. A take with only some of its outputs (an interrupted
-  run) fails with a message saying what to do, so nothing is overwritten silently.
+  skipped unless ``force``. A folder with only some outputs (left by an older
+  version) fails with a message saying what to do, so nothing is overwritten silently.
 - Takes run in a :class:`concurrent.futures.ProcessPoolExecutor` of ``jobs``
   processes (one BLAS thread each), or, with ``scheduler``, on a Dask distributed
   cluster (``dask.distributed.Client(address).map``). A failing take never stops
   the batch: its error is in the summary and the batch's exit code is 1.
+- **Interrupted** (SIGINT, SIGTERM): the workers are stopped (Dask futures cancelled),
+  unfinished takes leave nothing, and :class:`~takescribe.errors.Interrupted` carries
+  how many takes are complete on disk; rerunning the command does exactly the others.
+- Paths are made absolute before jobs are sent, so a Dask worker started in any
+  working directory reads and writes the same files as a local run.
 
 Conventions
 -----------
@@ -28,17 +36,20 @@ import contextlib
 import multiprocessing
 import os
 import sys
+import tempfile
 import time
+import uuid
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from ..errors import EXIT_BAD_INPUT, EXIT_OK, InputError, TakescribeError
-from ..jobs.pipeline import REPORT_FILES, compare_file, transcribe_file, write_draft_midi
+from ..errors import EXIT_BAD_INPUT, EXIT_OK, InputError, Interrupted, TakescribeError
 from ..export.noteio import write_maps
-from ..safeio import ensure_folder
+from ..interrupts import fault_point, handle_signals, in_worker, init_worker, job_running
+from ..jobs.pipeline import REPORT_FILES, compare_into, transcribe_into, write_draft_midi
+from ..safeio import STAGING_PREFIX, clear_stale, ensure_folder, scratch_folder, staged_outputs, write_error
 
 __all__ = ["AUDIO_SUFFIXES", "SCORE_SUFFIXES", "TakeJob", "TakeResult", "BatchSummary", "find_takes", "run_batch",
            "process_take", "validate_batch_folders"]
@@ -46,6 +57,10 @@ __all__ = ["AUDIO_SUFFIXES", "SCORE_SUFFIXES", "TakeJob", "TakeResult", "BatchSu
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".oga", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".mxl", ".xml", ".mid", ".midi")
 DRAFT_FILES = ("draft.mid", "notes.txt")
+#: Seconds to wait for a Dask scheduler before saying it cannot be reached.
+DASK_CONNECT_SECONDS = 4.0
+#: Seconds a stopped worker gets to remove its staging folder before it is killed.
+STOP_GRACE_SECONDS = 10.0
 
 
 @dataclass(frozen=True)
@@ -62,6 +77,8 @@ class TakeJob:
         Matching part file, if any.
     instrument : str, int or None
     force : bool
+    stop_event : str or None
+        Name of the Dask event that asks the job to stop (Dask runs only).
     """
 
     take: str
@@ -69,6 +86,7 @@ class TakeJob:
     part: str | None = None
     instrument: "str | int | None" = None
     force: bool = False
+    stop_event: str | None = None
 
     @property
     def outputs(self) -> tuple[Path, ...]:
@@ -88,7 +106,8 @@ class TakeResult:
     ----------
     take : str
     status : str
-        ``"done"``, ``"skipped"`` (finished in an earlier run) or ``"failed"``.
+        ``"done"``, ``"skipped"`` (finished in an earlier run), ``"failed"`` or
+        ``"stopped"`` (the batch was interrupted; nothing of the take is on disk).
     notes : int or None
         Notes in the draft.
     findings : int or None
@@ -143,11 +162,24 @@ class BatchSummary:
             lines.append(f"{Path(r.take).name:{width}s}  {r.status:8s} {notes:>6s} {findings:>8s} {r.seconds:8.1f}")
         done = sum(r.status == "done" for r in self.results)
         skipped = sum(r.status == "skipped" for r in self.results)
+        stopped = sum(r.status == "stopped" for r in self.results)
         lines.append(f"{len(self.results)} takes: {done} done, {skipped} skipped, {len(self.failed)} failed"
-                     f" in {self.seconds:.1f} s; outputs in {self.output_dir}")
+                     + (f", {stopped} stopped" if stopped else "")
+                     + f" in {self.seconds:.1f} s; outputs in {self.output_dir}")
         for r in self.failed:
             lines.append(f"failed: {Path(r.take).name}: {r.error}")
         return "\n".join(lines)
+
+
+def _prepare_output(output_dir) -> None:
+    """Create the results folder and prove it writable, before any take is processed."""
+    folder = ensure_folder(output_dir)
+    clear_stale(folder, STAGING_PREFIX)
+    try:
+        probe = tempfile.mkdtemp(prefix=f"{STAGING_PREFIX}{os.getpid()}-", dir=folder)
+    except OSError as exc:
+        raise write_error(folder, exc) from exc
+    os.rmdir(probe)
 
 
 def validate_batch_folders(input_dir, output_dir, score_dir=None) -> None:
@@ -160,7 +192,9 @@ def validate_batch_folders(input_dir, output_dir, score_dir=None) -> None:
 
 
 def find_takes(input_dir, output_dir, *, score_dir=None, instrument=None, force: bool = False) -> list[TakeJob]:
-    """The jobs of a batch: audio files of ``input_dir`` with their part and output folder."""
+    """The jobs of a batch: audio files of ``input_dir`` with their part and output folder, as absolute paths."""
+    input_dir, output_dir = Path(input_dir).absolute(), Path(output_dir).absolute()
+    score_dir = None if score_dir is None else Path(score_dir).absolute()
     takes = sorted(p for p in Path(input_dir).iterdir() if p.is_file() and p.suffix.lower() in AUDIO_SUFFIXES)
     jobs = []
     for take in takes:
@@ -189,31 +223,63 @@ def _one_blas_thread():
     return threadpool_limits(limits=1, user_api="blas")
 
 
+class _Stopped(Exception):
+    """The Dask client asked a running job to stop (a signal in the client)."""
+
+
+def _stop_check(job: TakeJob):
+    """A progress callback that stops the job when the batch's Dask stop event is set."""
+    if job.stop_event is None:
+        return None
+    from distributed import Event
+
+    event = Event(job.stop_event)
+
+    def check(message: str) -> None:
+        if event.is_set():
+            raise _Stopped(message)
+
+    return check
+
+
 def _transcribe_and_compare(job: TakeJob) -> tuple[int, int | None]:
-    """The work of one take; returns (notes in the draft, findings or None)."""
+    """The work of one take, all or nothing on disk; returns (notes in the draft, findings or None)."""
     present = [p for p in job.outputs if p.exists()]
     if present and not job.force:
         raise InputError(f"{job.folder}: holds only some of this take's outputs (an interrupted run?); remove"
                          " the folder or pass --force to redo the take")
-    folder = ensure_folder(job.folder)
-    midi_path, notes_path = folder / DRAFT_FILES[0], folder / DRAFT_FILES[1]
-    if job.part:
-        out = compare_file(job.take, job.part, folder, instrument=job.instrument, force=job.force)
-        write_draft_midi(midi_path, out.transcription, force=job.force)
-        write_maps(out.transcription.notes, notes_path, force=job.force)
-        return len(out.transcription.notes), len(out.comparison.findings)
-    out = transcribe_file(job.take, midi_path=midi_path, notes_path=notes_path, instrument=job.instrument,
-                          force=job.force)
-    return len(out.transcription.notes), None
+    progress = _stop_check(job)
+    with staged_outputs(force=job.force) as staged:
+        folder = staged.folder(job.folder)
+        midi_path, notes_path = folder / DRAFT_FILES[0], folder / DRAFT_FILES[1]
+        if job.part:
+            out = compare_into(folder, job.take, job.part, instrument=job.instrument, progress=progress)
+            fault_point("between-outputs")
+            write_draft_midi(midi_path, out.transcription)
+            write_maps(out.transcription.notes, notes_path)
+            return len(out.transcription.notes), len(out.comparison.findings)
+        out = transcribe_into(job.take, {midi_path: midi_path, notes_path: notes_path}, midi_path=midi_path,
+                              notes_path=notes_path, instrument=job.instrument, progress=progress)
+        return len(out.transcription.notes), None
 
 
 def process_take(job: TakeJob) -> TakeResult:
-    """Transcribe (and compare) one take; never raises: failures come back as a result."""
+    """Transcribe (and compare) one take; never raises an error: failures come back as a result.
+
+    A signal (:class:`~takescribe.errors.Interrupted`) removes the take's staging folder on its
+    way out; in a pool worker the process then exits, elsewhere the signal goes on to the caller.
+    """
     start = time.perf_counter()
     try:
-        with _one_blas_thread():
+        with scratch_folder(), job_running(), _one_blas_thread():
             notes, findings = _transcribe_and_compare(job)
         return TakeResult(job.take, "done", notes, findings, time.perf_counter() - start, None, job.part)
+    except Interrupted as exc:
+        if in_worker():
+            os._exit(exc.exit_code)
+        raise
+    except _Stopped:
+        return TakeResult(job.take, "stopped", seconds=time.perf_counter() - start, part=job.part)
     except TakescribeError as exc:
         error = str(exc)
     except Exception as exc:  # a bug on one take must not stop the batch
@@ -274,7 +340,8 @@ def _run_local(jobs: list[TakeJob], workers: int, bar: _Bar) -> dict:
         return results
     if multiprocessing.get_start_method(allow_none=False) == "fork":
         _warm_up()
-    with ProcessPoolExecutor(max_workers=workers) as pool:
+    pool = ProcessPoolExecutor(max_workers=workers, initializer=init_worker, initargs=(tempfile.gettempdir(),))
+    try:
         futures = {pool.submit(process_take, job): job for job in jobs}
         for future in as_completed(futures):
             job = futures[future]
@@ -284,21 +351,55 @@ def _run_local(jobs: list[TakeJob], workers: int, bar: _Bar) -> dict:
                 results[job.take] = TakeResult(job.take, "failed", error=f"worker died ({type(exc).__name__}: {exc})",
                                                part=job.part)
             bar.step(results[job.take])
+    except BaseException:
+        _stop_pool(pool)
+        raise
+    pool.shutdown(wait=True)
     return results
 
 
-def _run_dask(jobs: list[TakeJob], scheduler, bar: _Bar) -> dict:
+def _stop_pool(pool: ProcessPoolExecutor) -> None:
+    """Stop every worker now: SIGTERM (a worker in a job removes its staging folder), then SIGKILL.
+
+    ``ProcessPoolExecutor`` has no public way to stop running work before Python 3.14, so its
+    worker list (``_processes``) is read directly.
+    """
+    processes = list(getattr(pool, "_processes", {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        with contextlib.suppress(OSError, ValueError):
+            process.terminate()
+    deadline = time.monotonic() + STOP_GRACE_SECONDS
+    for process in processes:
+        with contextlib.suppress(OSError, ValueError):
+            process.join(max(0.0, deadline - time.monotonic()))
+            if process.is_alive():
+                process.kill()
+                process.join(5.0)
+
+
+def _dask_client(scheduler):
+    """A client of the scheduler at ``scheduler``, or an :class:`InputError` within :data:`DASK_CONNECT_SECONDS`."""
     try:
-        from dask.distributed import Client, as_completed as dask_completed
+        from dask.distributed import Client
     except ImportError as exc:
         raise InputError("--scheduler needs Dask's distributed scheduler, which is not installed:"
                          " pip install 'dask[distributed]', or run without --scheduler") from exc
-    results = {}
     try:
-        client = Client(scheduler)
+        return Client(scheduler, timeout=DASK_CONNECT_SECONDS)
     except (OSError, TimeoutError, ValueError) as exc:
-        raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); check the address"
-                         " (e.g. tcp://host:8786) and that the scheduler runs") from exc
+        raise InputError(f"cannot reach the Dask scheduler at {scheduler} within {DASK_CONNECT_SECONDS:.0f} s"
+                         f" ({type(exc).__name__}); check the address (e.g. tcp://host:8786) and that the scheduler"
+                         " runs") from exc
+
+
+def _run_dask(jobs: list[TakeJob], client, bar: _Bar) -> dict:
+    from dask.distributed import Event, as_completed as dask_completed
+
+    results = {}
+    stop = Event(f"takescribe-stop-{uuid.uuid4().hex}", client=client)
+    jobs = [TakeJob(j.take, j.folder, j.part, j.instrument, j.force, stop.name) for j in jobs]
+    futures = []
     try:
         # one worker at a time compiles (or loads) librosa's cached numba code: concurrent
         # compiles on one machine can tear the shared on-disk cache (see _warm_up)
@@ -314,8 +415,12 @@ def _run_dask(jobs: list[TakeJob], scheduler, bar: _Bar) -> dict:
                 results[job.take] = TakeResult(job.take, "failed", error=f"Dask worker failed ({type(exc).__name__}:"
                                                f" {exc})", part=job.part)
             bar.step(results[job.take])
-    finally:
-        client.close()
+    except BaseException:
+        # running jobs see the event at their next stage and remove their staging folders
+        with contextlib.suppress(Exception):
+            stop.set()
+            client.cancel(futures)
+        raise
     return results
 
 
@@ -364,7 +469,6 @@ def run_batch(input_dir, output_dir, *, score_dir=None, jobs: int | None = None,
     validate_batch_folders(input_dir, output_dir, score_dir)
     if jobs is not None and jobs < 1:
         raise InputError(f"jobs must be >= 1, got {jobs}")
-    ensure_folder(output_dir)
     all_jobs = find_takes(input_dir, output_dir, score_dir=score_dir, instrument=instrument, force=force)
     results = {}
     todo = []
@@ -373,13 +477,31 @@ def run_batch(input_dir, output_dir, *, score_dir=None, jobs: int | None = None,
             results[job.take] = TakeResult(job.take, "skipped", part=job.part)
         else:
             todo.append(job)
-    bar = _Bar(len(todo), progress)
-    if todo:
-        if scheduler is not None:
-            results.update(_run_dask(todo, scheduler, bar))
-        else:
+    with handle_signals():
+        _run_todo(todo, all_jobs, results, output_dir, jobs=jobs, scheduler=scheduler, progress=progress)
+    ordered = tuple(results[job.take] for job in all_jobs)
+    counts = {status: sum(r.status == status for r in ordered) for status in ("done", "skipped", "failed", "stopped")}
+    return BatchSummary(ordered, str(output_dir), time.perf_counter() - t0, counts)
+
+
+def _run_todo(todo: list[TakeJob], all_jobs: list[TakeJob], results: dict, output_dir, *, jobs, scheduler,
+              progress: bool) -> None:
+    """Process the takes of ``todo`` into ``results``; an interruption says what is complete on disk."""
+    client = _dask_client(scheduler) if scheduler is not None and todo else None
+    try:
+        _prepare_output(output_dir)
+        bar = _Bar(len(todo), progress)
+        if client is not None:
+            results.update(_run_dask(todo, client, bar))
+        elif todo:
             workers = min(jobs or os.cpu_count() or 1, len(todo))
             results.update(_run_local(todo, workers, bar))
-    ordered = tuple(results[job.take] for job in all_jobs)
-    counts = {status: sum(r.status == status for r in ordered) for status in ("done", "skipped", "failed")}
-    return BatchSummary(ordered, str(output_dir), time.perf_counter() - t0, counts)
+    except Interrupted as exc:
+        clear_stale(output_dir, STAGING_PREFIX)
+        complete = sum(job.finished() for job in all_jobs)
+        exc.note = (f"{complete} of {len(all_jobs)} takes have complete outputs in {output_dir} (kept); the others"
+                    " left nothing behind; run the same command again to do exactly those")
+        raise
+    finally:
+        if client is not None:
+            client.close()

@@ -3,6 +3,10 @@
 Each function here takes paths and options, calls the stage modules in data-flow
 order, writes outputs through :mod:`takescribe.safeio` and returns values; no
 argument parsing (that is :mod:`takescribe.cli`) and no signal processing of its own.
+
+Every file job is all or nothing (:func:`takescribe.safeio.staged_outputs`): its outputs
+are staged next to their targets before any analysis (which proves the places writable)
+and moved into place only when all are complete; an error or a signal leaves nothing.
 """
 
 from __future__ import annotations
@@ -29,12 +33,13 @@ from ..transcription.nmf import decompose
 from ..notation.notate import notate, write_musicxml
 from ..export.noteio import read_notes, write_maps
 from ..report.practice import write_report
-from ..safeio import write_text
+from ..interrupts import fault_point
+from ..safeio import staged_outputs, write_bytes, write_text
 from ..reference.part import load_reference
 from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
 from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
 
-__all__ = ["TranscribeOutputs", "CompareOutputs", "compare_file", "compare_take", "REPORT_FILES", "transcribe_file", "transcribe_take", "evaluate_files", "learn_dictionary_file",
+__all__ = ["TranscribeOutputs", "CompareOutputs", "compare_file", "compare_into", "compare_take", "transcribe_into", "REPORT_FILES", "transcribe_file", "transcribe_take", "evaluate_files", "learn_dictionary_file",
            "load_take", "draft_midi_tracks", "write_draft_midi"]
 
 
@@ -93,6 +98,7 @@ def load_take(path, *, progress: Callable[[str], None] | None = None) -> tuple[n
     """
     if progress:
         progress(f"reading {Path(path).name}")
+    fault_point("reading")
     return load_audio(path, sr=ANALYSIS_SR, spill_seconds=LONG_TAKE_SECONDS)
 
 
@@ -120,6 +126,7 @@ def transcribe_take(
     # long takes go block by block so memory stays flat (see takescribe.blocks)
     long_take = len(y) > LONG_TAKE_SECONDS * sr
     blind = transcribe_long if long_take else transcribe
+    fault_point("factorizing")
     if reference is None:
         return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
                      progress=progress), None
@@ -164,8 +171,8 @@ def transcribe_file(
 ) -> TranscribeOutputs:
     """The ``transcribe`` job: a take (and optionally its part) to draft files.
 
-    Outputs are checked before any work (no overwrite without ``force``) and each is
-    written atomically. The MIDI draft keeps the performed timing (take seconds)
+    Outputs are checked and staged before any work (no overwrite without ``force``) and
+    appear together, or not at all (:func:`takescribe.safeio.staged_outputs`). The MIDI draft keeps the performed timing (take seconds)
     unless ``quantized_midi``, which writes the notated rhythm with a tempo map that
     follows the take, one track per staff.
     """
@@ -174,6 +181,20 @@ def transcribe_file(
         raise InputError("nothing to write: give -o draft.mid, --notes draft.txt or --musicxml draft.musicxml")
     _check_outputs(outputs, force=force)
     _check_not_input(outputs, [take_path, score_path, dictionary_path])
+    with staged_outputs(force=force) as job:
+        staged = {path: job.file(path) for path in outputs if path is not None}
+        out = transcribe_into(take_path, staged, midi_path=midi_path, notes_path=notes_path,
+                             musicxml_path=musicxml_path, instrument=instrument, score_path=score_path, part=part,
+                             dictionary_path=dictionary_path, tempo=tempo, time_signature=time_signature, grid=grid,
+                             midi_type=midi_type, quantized_midi=quantized_midi, progress=progress)
+    return out
+
+
+def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None, musicxml_path=None, instrument=None,
+                    score_path=None, part=None, dictionary_path=None, tempo: float | None = None, time_signature=None,
+                    grid: str | None = None, midi_type: int = 1, quantized_midi: bool = False,
+                    progress: Callable[[str], None] | None = None) -> TranscribeOutputs:
+    """The work of :func:`transcribe_file`, writing each output to its staging path ``staged[path]``."""
     preset = resolve_instrument(instrument) if instrument is not None else None
     reference = load_reference(score_path, part=part) if score_path is not None else None
     dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
@@ -191,12 +212,16 @@ def transcribe_file(
         )
     written = []
     if midi_path is not None:
-        written.append(write_draft_midi(midi_path, result, notation=notation, midi_type=midi_type,
-                                        quantized=quantized_midi, force=force))
+        write_draft_midi(staged[midi_path], result, notation=notation, midi_type=midi_type, quantized=quantized_midi)
+        written.append(Path(midi_path))
+        fault_point("between-outputs")
     if notes_path is not None:
-        written.append(write_maps(result.notes, notes_path, force=force))
+        write_maps(result.notes, staged[notes_path])
+        written.append(Path(notes_path))
+        fault_point("between-outputs")
     if musicxml_path is not None:
-        written.append(write_musicxml(notation, musicxml_path, force=force))
+        write_musicxml(notation, staged[musicxml_path])
+        written.append(Path(musicxml_path))
     return TranscribeOutputs(result, written, reference, alignment, notation)
 
 
@@ -227,11 +252,13 @@ def evaluate_files(estimate_path, reference_path, *, json_path=None, sustain: bo
     """The ``evaluate`` job: scores of one note list against another (any supported format)."""
     _check_outputs([json_path], force=force)
     _check_not_input([json_path], [estimate_path, reference_path])
-    estimate = read_notes(estimate_path, sustain=sustain)
-    reference = read_notes(reference_path, sustain=sustain, part=part)
-    scores = evaluate_notes(reference, estimate)
-    if json_path is not None:
-        write_text(json_path, json.dumps(scores, indent=2, sort_keys=True) + "\n", force=force)
+    with staged_outputs(force=force) as job:
+        staged = job.file(json_path) if json_path is not None else None
+        estimate = read_notes(estimate_path, sustain=sustain)
+        reference = read_notes(reference_path, sustain=sustain, part=part)
+        scores = evaluate_notes(reference, estimate)
+        if staged is not None:
+            write_text(staged, json.dumps(scores, indent=2, sort_keys=True) + "\n")
     return scores
 
 
@@ -247,6 +274,16 @@ def learn_dictionary_file(recording_path, score_path, output_path, *, part=None,
     """
     _check_outputs([output_path], force=force)
     _check_not_input([output_path], [recording_path, score_path])
+    with staged_outputs(force=force) as job:
+        staged = job.file(output_path)
+        learned = _learn_dictionary(recording_path, score_path, part=part, instrument=instrument, n_iter=n_iter,
+                                    progress=progress)
+        save_dictionary(learned, staged)
+    return learned
+
+
+def _learn_dictionary(recording_path, score_path, *, part, instrument, n_iter: int, progress) -> Dictionary:
+    """The work of :func:`learn_dictionary_file`."""
     reference = load_reference(score_path, part=part)
     if instrument is None:
         instrument = reference.midi_program if reference.midi_program is not None else "piano"
@@ -262,9 +299,7 @@ def learn_dictionary_file(recording_path, score_path, output_path, *, part=None,
         progress("learning partial amplitudes")
     fit = decompose(V, base.W, beta=1.0, n_iter=n_iter, mask=mask, mask_penalty=1.0)
     H = fit.H * (mask > 0)
-    learned = adapt_dictionary(V, base, H, n_iter=n_iter, beta=1.0, min_activation=1e-3)
-    save_dictionary(learned, output_path, force=force)
-    return learned
+    return adapt_dictionary(V, base, H, n_iter=n_iter, beta=1.0, min_activation=1e-3)
 
 
 REPORT_FILES = ("report.html", "findings.json", "annotated.musicxml", "take.mid")
@@ -319,10 +354,22 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
 def compare_file(take_path, score_path, output_folder, *, part=None, instrument=None, dictionary_path=None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
                  force: bool = False, progress: Callable[[str], None] | None = None) -> CompareOutputs:
-    """The ``compare`` job: a take and its part to a practice report folder."""
+    """The ``compare`` job: a take and its part to a practice report folder (all files or none)."""
     folder = Path(output_folder)
     _check_outputs([folder / name for name in REPORT_FILES], force=force)
     _check_not_input([folder / name for name in REPORT_FILES], [take_path, score_path, dictionary_path])
+    with staged_outputs(force=force) as job:
+        out = compare_into(job.folder(folder), take_path, score_path, part=part, instrument=instrument,
+                           dictionary_path=dictionary_path, timing_tolerance=timing_tolerance,
+                           duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, progress=progress)
+    return CompareOutputs(out.comparison, out.transcription, out.alignment, out.reference,
+                          {name: folder / name for name in out.written})
+
+
+def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=None, dictionary_path=None,
+                 timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
+                 progress: Callable[[str], None] | None = None) -> CompareOutputs:
+    """The work of :func:`compare_file`, writing the report into ``folder`` (a staging folder)."""
     reference = load_reference(score_path, part=part)
     dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
     y, sr = load_take(take_path, progress=progress)
@@ -334,8 +381,9 @@ def compare_file(take_path, score_path, output_folder, *, part=None, instrument=
     draft = midi_bytes(tracks, tempo_map=tempo_map, time_signatures=time_signatures, title="takescribe draft")
     if progress:
         progress("writing the report")
-    written = write_report(folder, comparison, reference, take_path=take_path, draft_notes=result.notes,
-                           draft_midi_bytes=draft, force=force)
+    written = write_report(folder, comparison, reference, take_path=take_path, draft_notes=result.notes)
+    fault_point("between-outputs")
+    written["take.mid"] = write_bytes(folder / "take.mid", draft)
     return CompareOutputs(comparison, result, alignment, reference, written)
 
 
