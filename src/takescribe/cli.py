@@ -119,7 +119,45 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="try takescribe on two bundled student takes (no recording needed)")
     p.add_argument("-o", "--output", default="demo-output", help="folder for the demo reports (default demo-output)")
     _add_common(p)
+    _add_desk_commands(sub)
     return parser
+
+
+def _add_desk_commands(sub) -> None:
+    """The ``desk`` and ``progress`` subcommands (see :mod:`takescribe.desk`)."""
+    p = sub.add_parser("desk", help="open the teacher's desk in the browser (a local app; nothing leaves this computer)")
+    p.add_argument("--library", default="~/takescribe-library", help="library folder (default ~/takescribe-library)")
+    p.add_argument("--port", type=int, default=8765, help="port on 127.0.0.1 (default 8765; 0 picks a free one)")
+    p.add_argument("--database", metavar="URL", help="database URL (default: SQLite in the library; or postgresql://...)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run the analyses on a Dask cluster (e.g. tcp://host:8786)")
+    p.add_argument("--workers", type=int, help="analyses at once on this computer (default: one per CPU)")
+    p.add_argument("--watch", metavar="DIR", help="also add new recordings copied into this folder")
+    p.add_argument("--no-browser", action="store_true", help="print the link instead of opening the browser")
+    p.add_argument("--no-demo", action="store_true", help="start a new library empty (default: with the demo students)")
+    _add_common(p)
+
+    p = sub.add_parser("progress", help="progress across takes from a folder of report folders (HTML and JSON)")
+    p.add_argument("reports", help="folder holding one report folder per take ('takescribe compare -o' output)")
+    p.add_argument("-o", "--output", required=True, help="HTML page to write")
+    p.add_argument("--json", help="also write the progress as JSON")
+    _add_common(p)
+
+
+def _run_desk(args: argparse.Namespace) -> int:
+    import webbrowser
+
+    from .desk import start_desk
+
+    desk = start_desk(args.library, port=args.port, url=args.database, scheduler=args.scheduler,
+                      workers=args.workers, watch=args.watch, seed=not args.no_demo)
+    print(f"takescribe desk: {desk.url}\n(library {desk.library.root}; stop with Ctrl+C; {PRIVACY_NOTE})", flush=True)
+    if not args.no_browser:
+        webbrowser.open(desk.url)
+    try:
+        desk.thread.join()
+    finally:
+        desk.stop()
+    return EXIT_OK
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
@@ -169,6 +207,14 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
         from .jobs import demo
 
         print(demo.format_demo_summary(demo.run_demo(args.output, force=args.force, progress=progress)))
+        return EXIT_OK
+    if args.command == "desk":
+        return _run_desk(args)
+    if args.command == "progress":
+        from .desk.progress import write_progress
+
+        progress = write_progress(args.reports, args.output, json_path=args.json, force=args.force)
+        print(f"{len(progress.takes)} takes; wrote {args.output}" + (f" and {args.json}" if args.json else ""))
         return EXIT_OK
     raise AssertionError(f"unhandled command {args.command}")
 
