@@ -139,6 +139,17 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
                                            lib.settings.max_part_bytes) + (1 << 20)
     app.config["MAX_FORM_MEMORY_SIZE"] = 1 << 20
     app.extensions["desk.notices"] = deque(maxlen=20)
+
+    @app.before_request
+    def _limit():
+        # a body larger than the route can use is refused before it is read
+        if request.path == "/library/import":
+            request.max_content_length = lib.settings.max_archive_bytes + (1 << 20)
+        elif request.path == "/pieces":
+            request.max_content_length = lib.settings.max_part_bytes + (1 << 20)
+        else:
+            request.max_content_length = lib.settings.max_upload_bytes + (1 << 20)
+
     install_guard(app, key=key, port_of=port_of)
     kick = runner.kick if runner is not None else (lambda: None)
 
@@ -155,8 +166,8 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
 
     @app.errorhandler(RequestEntityTooLarge)
     def _too_large(exc):
-        limit = lib.settings.max_upload_bytes // 2**20
-        return _refusal(413, f"the file is larger than the desk accepts ({limit} MB for a recording); nothing was"
+        limit = lib.settings.max_upload_bytes / 2**20
+        return _refusal(413, f"the file is larger than the desk accepts ({limit:g} MB for a recording); nothing was"
                              " stored. Trim the recording or export it compressed (FLAC, OGG)")
 
     @app.errorhandler(HTTPException)
