@@ -71,6 +71,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--midi-type", type=int, choices=(0, 1), default=1, help="Standard MIDI File format (default 1)")
     p.add_argument("--quantized-midi", action="store_true",
                    help="write the notated rhythm to the MIDI file (default: the performed timing)")
+    p.set_defaults(usage_error=p.error)
     _add_common(p)
 
     p = sub.add_parser("evaluate", help="score a note list against a reference note list (mir_eval conventions)")
@@ -93,6 +94,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--duration-tolerance", type=float, default=0.5,
                    help="relative length difference before a note counts as held short/long (default 0.5)")
     p.add_argument("--allow-mismatch", action="store_true", help="compare even if the take does not seem to be the part")
+    p.add_argument("--student", help="the player's name for the report's header (default: the take's artist tag)")
+    p.add_argument("--title", help="the piece for the report's header (default: the score's title)")
     _add_common(p)
 
     p = sub.add_parser("batch", help="transcribe every take in a folder (and compare those with a matching part)")
@@ -186,7 +189,7 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
             args.take, args.part_file, args.output, part=args.part_name, instrument=args.instrument,
             dictionary_path=args.dictionary, timing_tolerance=args.timing_tolerance,
             duration_tolerance=args.duration_tolerance, allow_mismatch=args.allow_mismatch, force=args.force,
-            progress=progress,
+            progress=progress, student=args.student, title=args.title,
         )
         print(pipeline.format_comparison_summary(out))
         return EXIT_OK
@@ -247,6 +250,12 @@ def main(argv: list[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # argparse: usage errors exit 2, --help/--version exit 0
         return int(exc.code) if isinstance(exc.code, int) else EXIT_USAGE
+    if args.command == "transcribe" and not (args.midi or args.notes or args.musicxml):
+        # a missing output is a usage error (exit 2), reported before any work
+        try:
+            args.usage_error("nothing to write: give -o draft.mid, --notes draft.txt or --musicxml draft.musicxml")
+        except SystemExit as exc:
+            return int(exc.code) if isinstance(exc.code, int) else EXIT_USAGE
     progress = Progress(quiet=getattr(args, "quiet", False))
     debug = getattr(args, "debug", False)
     previous = warnings.showwarning

@@ -57,6 +57,7 @@ import soundfile as sf
 import soxr
 
 from ..errors import AudioError, InputError
+from .decode import SUPPORTED_FORMATS, decoded_format, open_decoded, refused_format
 
 __all__ = [
     "TakescribeWarning",
@@ -482,6 +483,12 @@ def _open(path: Path) -> sf.SoundFile:
     problem = _not_audio_problem(head)
     if problem:
         raise AudioError(f"{path}: {problem}")
+    # phone recordings (AAC in MP4) are decoded by PyAV; other containers are named and refused
+    refused, decoded = refused_format(head), decoded_format(head)
+    if refused:
+        raise AudioError(f"{path}: {refused}, which takescribe does not read; convert the take to {SUPPORTED_FORMATS}")
+    if decoded:
+        return open_decoded(path, decoded)
     try:
         with _native_stderr_silenced(_looks_like_mpeg(head)):
             handle = sf.SoundFile(path)

@@ -194,7 +194,7 @@ def _run_student(source: Path, out: Path, entry: dict, *, force: bool,
     say = (lambda message: progress(f"{entry['folder']}: {message}")) if progress else None
     ensure_folder(out)
     take, part = source / "take.flac", source / "part.musicxml"
-    outputs = compare_file(take, part, out, force=force, progress=say)
+    outputs = compare_file(take, part, out, force=force, progress=say, student=entry["student"], title=entry["piece"])
     # The draft is the transcription compare_file already made with the part as guide;
     # notated here exactly as transcribe_file(take, score_path=part, ...) would, without
     # a second factorization.

@@ -32,10 +32,12 @@ from ..export.midi import MidiTrack, midi_bytes, write_midi
 from ..transcription.nmf import decompose
 from ..notation.notate import notate, write_musicxml
 from ..export.noteio import read_notes, write_maps
-from ..report.practice import write_report
+from ..report.practice import ReportDetails, write_report
+from ..report.voice import part_voice
+from ..audio.decode import take_tags
 from ..interrupts import fault_point
 from ..safeio import staged_outputs, write_bytes, write_text
-from ..reference.part import load_reference
+from ..reference.part import load_part, load_reference
 from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
 from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
 
@@ -353,24 +355,32 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
 
 def compare_file(take_path, score_path, output_folder, *, part=None, instrument=None, dictionary_path=None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
-                 force: bool = False, progress: Callable[[str], None] | None = None) -> CompareOutputs:
-    """The ``compare`` job: a take and its part to a practice report folder (all files or none)."""
+                 force: bool = False, progress: Callable[[str], None] | None = None,
+                 student: str | None = None, title: str | None = None) -> CompareOutputs:
+    """The ``compare`` job: a take and its part to a practice report folder (all files or none).
+
+    ``student`` and ``title`` name the player and the piece in the report's header (default:
+    the take's tags and the score's title).
+    """
     folder = Path(output_folder)
     _check_outputs([folder / name for name in REPORT_FILES], force=force)
     _check_not_input([folder / name for name in REPORT_FILES], [take_path, score_path, dictionary_path])
     with staged_outputs(force=force) as job:
         out = compare_into(job.folder(folder), take_path, score_path, part=part, instrument=instrument,
                            dictionary_path=dictionary_path, timing_tolerance=timing_tolerance,
-                           duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, progress=progress)
+                           duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, progress=progress,
+                           student=student, title=title)
     return CompareOutputs(out.comparison, out.transcription, out.alignment, out.reference,
                           {name: folder / name for name in out.written})
 
 
 def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=None, dictionary_path=None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
-                 progress: Callable[[str], None] | None = None) -> CompareOutputs:
+                 progress: Callable[[str], None] | None = None, student: str | None = None,
+                 title: str | None = None) -> CompareOutputs:
     """The work of :func:`compare_file`, writing the report into ``folder`` (a staging folder)."""
-    reference = load_reference(score_path, part=part)
+    loaded = load_part(score_path, part=part)
+    reference = loaded.reference
     dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
     y, sr = load_take(take_path, progress=progress)
     comparison, result, alignment = compare_take(
@@ -381,10 +391,30 @@ def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=N
     draft = midi_bytes(tracks, tempo_map=tempo_map, time_signatures=time_signatures, title="takescribe draft")
     if progress:
         progress("writing the report")
-    written = write_report(folder, comparison, reference, take_path=take_path, draft_notes=result.notes)
+    details = report_details(take_path, score_path, loaded, result, student=student, title=title)
+    voice = part_voice(reference, comparison, instrument=result.instrument, dictionary=result.dictionary,
+                       tuning=_dictionary_tuning(result.dictionary))
+    written = write_report(folder, comparison, reference, written=loaded.written, take=(y, sr), details=details,
+                           voice=voice, draft_notes=result.notes)
     fault_point("between-outputs")
     written["take.mid"] = write_bytes(folder / "take.mid", draft)
     return CompareOutputs(comparison, result, alignment, reference, written)
+
+
+def report_details(take_path, score_path, loaded, result, *, student=None, title=None) -> ReportDetails:
+    """Header of the report: options first, then what the files say (tags, score title, names)."""
+    tags = take_tags(take_path)
+    piece = title or loaded.title or loaded.reference.part_name or Path(score_path).stem
+    return ReportDetails(student=student or tags.get("artist", ""), piece=piece,
+                         instrument=loaded.reference.instrument_name or result.instrument.gm_name,
+                         recorded=tags.get("date", ""), take_name=Path(take_path).name)
+
+
+def _dictionary_tuning(dictionary) -> float:
+    """Tuning offset (semitones) of a dictionary's frequency axis, whose first bin is A0 = MIDI 21."""
+    if dictionary is None or len(getattr(dictionary, "frequencies", ())) == 0:
+        return 0.0
+    return float(12.0 * np.log2(float(dictionary.frequencies[0]) / 27.5))
 
 
 def format_scores(scores: dict) -> str:

@@ -58,6 +58,8 @@ __all__ = [
     "Reference",
     "ScoreWarning",
     "load_reference",
+    "load_part",
+    "LoadedPart",
     "list_parts",
     "validate_reference",
     "DEFAULT_BPM",
@@ -903,6 +905,56 @@ def list_parts(path) -> list[str]:
     return [name for name, _ in _group_parts(_parse_musicxml(path))]
 
 
+@dataclass(frozen=True)
+class LoadedPart:
+    """A part read once: its notes in performance order and, for MusicXML, the notation.
+
+    Attributes
+    ----------
+    reference : Reference
+    written : music21.stream.Score or None
+        The chosen part alone (its staves grouped), in written order, as parsed from the
+        checked XML; None for MIDI. Later stages (the report) take it from here instead of
+        reading the file again. Treat it as read-only: copy it before changing it.
+    title : str
+        The score's title (work or movement title) when the file gives one, else "".
+    """
+
+    reference: Reference
+    written: object = None
+    title: str = ""
+
+
+def load_part(path, *, part: int | str | None = None) -> LoadedPart:
+    """:func:`load_reference` that also keeps the parsed notation of the part (one read, same checks)."""
+    path = _check_path(path)
+    if path.suffix.lower() in MIDI_SUFFIXES:
+        return LoadedPart(load_reference(path, part=part))
+    from music21 import stream
+
+    score = _parse_musicxml(path)
+    groups = _group_parts(score)
+    if not groups:
+        raise ScoreError(f"{path}: the MusicXML file has no parts; export the score with its parts")
+    index = _select([name for name, _ in groups], part, path)
+    reference = _reference_from_score(score, index, path)
+    written = stream.Score()
+    for staff in groups[index][1]:
+        written.insert(0, staff)
+    metadata = getattr(score, "metadata", None)
+    title = ""
+    if metadata is not None:
+        title = str(metadata.title or metadata.movementName or "").strip()
+    return LoadedPart(reference, written, title)
+
+
+def _reference_from_score(score, index: int, path: Path) -> Reference:
+    expanded = _expand(score, path)
+    if len(_group_parts(expanded)) != len(_group_parts(score)):
+        expanded = score
+    return _build_reference(_musicxml_part(expanded, index, path, written=score), path)
+
+
 def load_reference(path, *, part: int | str | None = None) -> Reference:
     """Load one part of a MusicXML or MIDI score in performance order.
 
@@ -955,8 +1007,4 @@ def load_reference(path, *, part: int | str | None = None) -> Reference:
     names = [name for name, _ in _group_parts(score)]
     if not names:
         raise ScoreError(f"{path}: the MusicXML file has no parts; export the score with its parts")
-    index = _select(names, part, path)
-    expanded = _expand(score, path)
-    if len(_group_parts(expanded)) != len(names):
-        expanded = score
-    return _build_reference(_musicxml_part(expanded, index, path, written=score), path)
+    return _reference_from_score(score, _select(names, part, path), path)
