@@ -471,3 +471,25 @@ def test_beats_are_shown_as_musicians_count_them(beat, shown):
     from takescribe.report.table import format_beat
 
     assert format_beat(beat) == shown
+
+
+# --------------------------------------------------------------------------- the README's quick start
+
+
+def test_readme_quick_start_demo_runs_twice_as_written(tmp_path, monkeypatch):
+    """Issue #18: the demo command of the README's quick start works a second time in the same folder."""
+    import shlex
+
+    from takescribe import cli
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    quick = readme[readme.index("## Quick start"):readme.index("\n## ", readme.index("## Quick start") + 5)]
+    blocks = re.findall(r"```sh\n(.*?)```", quick, re.S)
+    assert any("venv" in block for block in blocks), "the quick start makes a virtual environment"
+    line = next(block for block in blocks if "takescribe demo" in block)
+    command = next(part for part in line.split("&&") if "takescribe demo" in part)
+    argv = shlex.split(command)[1:]
+    monkeypatch.chdir(tmp_path)
+    for _ in range(2):
+        assert cli.main(argv + ["--quiet"]) == 0
+    assert sorted(p.name for p in (tmp_path / "demo-output").iterdir()) == ["piano", "violin"]

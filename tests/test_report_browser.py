@@ -294,3 +294,99 @@ def _page_requests(net_log: Path) -> list[str]:
     return [e["params"]["url"] for e in log["events"]
             if e["type"] == start_job and "url" in (e.get("params") or {})
             and e["params"].get("initiator") != "not an origin"]
+
+
+# --------------------------------------------------------------------------- Firefox ESR
+
+# Collects every script error of the page from its first line on (inserted into a copy only).
+_ERROR_TRAP = ("<script>window.__pageErrors = []; window.addEventListener('error', function (e) {"
+               " window.__pageErrors.push(String(e.message)); });</script>")
+
+
+class _Marionette:
+    """A headless Firefox driven through Marionette, Firefox's own remote protocol.
+
+    Messages are ``<length>:<JSON>``; a command is ``[0, id, name, parameters]`` and its answer
+    ``[1, id, error, result]`` (the framing geckodriver speaks to Firefox). The port is chosen by
+    Firefox (``marionette.port`` 0) and read from ``MarionetteActivePort`` in the profile, so
+    parallel test workers never collide; it listens on 127.0.0.1 only.
+    """
+
+    def __init__(self, firefox: str, profile: Path, *, timeout: float = 60.0):
+        profile.mkdir(parents=True, exist_ok=True)
+        (profile / "user.js").write_text(
+            'user_pref("marionette.port", 0);\nuser_pref("media.autoplay.default", 0);\n'
+            'user_pref("network.proxy.type", 1);\nuser_pref("network.proxy.http", "127.0.0.1");\n'
+            'user_pref("network.proxy.http_port", 9);\nuser_pref("app.update.enabled", false);\n', encoding="utf-8")
+        self.process = subprocess.Popen([firefox, "--headless", "--marionette", "--no-remote", "--profile", str(profile)],
+                                        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        port_file = profile / "MarionetteActivePort"
+        deadline = time.monotonic() + timeout
+        while not (port_file.exists() and port_file.read_text().strip()):
+            if time.monotonic() > deadline or self.process.poll() is not None:
+                self.close()
+                raise RuntimeError("Firefox did not start its Marionette server")
+            time.sleep(0.2)
+        self.socket = socket.create_connection(("127.0.0.1", int(port_file.read_text().strip())), timeout=timeout)
+        self.stream = self.socket.makefile("rb")
+        self.last_id = 0
+        self._read()  # the server's greeting
+        self.command("WebDriver:NewSession", {"capabilities": {}})
+
+    def _read(self):
+        length = b""
+        while (c := self.stream.read(1)) != b":":
+            if not c:
+                raise RuntimeError("Marionette closed the connection")
+            length += c
+        return json.loads(self.stream.read(int(length)))
+
+    def command(self, name: str, parameters: dict):
+        self.last_id += 1
+        data = json.dumps([0, self.last_id, name, parameters]).encode("utf-8")
+        self.socket.sendall(str(len(data)).encode("ascii") + b":" + data)
+        _, _, error, result = self._read()
+        if error:
+            raise RuntimeError(f"{name}: {error}")
+        return (result or {}).get("value")
+
+    def run(self, script: str, *, asynchronous: bool = False):
+        name = "WebDriver:ExecuteAsyncScript" if asynchronous else "WebDriver:ExecuteScript"
+        return self.command(name, {"script": script, "args": []})
+
+    def close(self) -> None:
+        try:
+            if getattr(self, "socket", None) is not None:
+                self.command("WebDriver:DeleteSession", {})
+                self.socket.close()
+        except (OSError, RuntimeError):
+            pass
+        self.process.terminate()
+        try:
+            self.process.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            self.process.kill()
+
+
+@pytest.mark.skipif(FIREFOX is None, reason="firefox-esr is not on PATH (Debian: apt-get install firefox-esr)")
+def test_report_works_in_firefox_without_script_errors(browser_report, tmp_path):
+    page = tmp_path / "report-with-error-trap.html"
+    text = browser_report["html"].read_text(encoding="utf-8")
+    at = text.index("<head>") + len("<head>")
+    page.write_text(text[:at] + _ERROR_TRAP + text[at:], encoding="utf-8")
+    firefox = _Marionette(FIREFOX, tmp_path / "firefox-profile")
+    try:
+        firefox.command("WebDriver:Navigate", {"url": page.as_uri()})
+        state = firefox.run("return [document.readyState, typeof window.takescribe, window.__pageErrors]")
+        assert state == ["complete", "object", []], state
+        finding = browser_report["findings"][0]
+        now = firefox.run(f"takescribe.playFinding('{finding['id']}'); return document.getElementById('take').currentTime")
+        assert finding["time"] - MAX_LEAD <= now <= finding["time"], (finding, now)
+        peak = firefox.run("var done = arguments[arguments.length - 1]; takescribe.hearPart().then(function (b) {"
+                           " var c = b.getChannelData(0), m = 0; for (var i = 0; i < c.length; i++) {"
+                           " m = Math.max(m, Math.abs(c[i])); } done(m); }).catch(function (e) { done(String(e)); });",
+                           asynchronous=True)
+        assert isinstance(peak, float) and peak > 0.01, peak
+        assert firefox.run("return window.__pageErrors") == []
+    finally:
+        firefox.close()
