@@ -152,8 +152,8 @@ def progress_json(progress: Progress) -> dict:
 def _grid_svg(progress: Progress) -> str:
     """Bars down the side, takes across; a mark sized by the number of findings in that bar."""
     n_bars, n_takes = progress.per_bar.shape
-    cell, left, top = 26, 56, 92
-    width, height = left + cell * max(n_takes, 1) + 10, top + cell * n_bars + 10
+    cell, left, top = 30, 78, 92
+    width, height = left + cell * max(n_takes, 1) + 70, top + cell * n_bars + 10
     recurring = {r["bar"] for r in progress.recurring}
     out = [f'<svg class="grid" viewBox="0 0 {width} {height}" width="{width}" height="{height}" role="img"'
            ' aria-label="findings per bar, one column per take">']

@@ -99,7 +99,8 @@ def _reporter(engine, job_id: int, attempt: int):
 
 def _load(conn, job_id: int):
     j, t, p = db.jobs, db.takes, db.pieces
-    return conn.execute(sa.select(j.c.attempt, j.c.status, t.c.id.label("take_id"), t.c.audio_file, p.c.part_file,
+    return conn.execute(sa.select(j.c.attempt, j.c.status, t.c.id.label("take_id"), t.c.audio_file, t.c.label,
+                                  p.c.part_file,
                                   p.c.part_name, p.c.instrument)
                         .join(t, t.c.id == j.c.take_id).join(p, p.c.id == t.c.piece_id)
                         .where(j.c.id == job_id)).first()
@@ -171,8 +172,15 @@ def run_job(url: str, root: str, job_id: int, attempt: int) -> str:
         error = None
         try:
             staging.mkdir(parents=True)
+            # the report names the recording: under the teacher's name for it, not the stored id
+            named = staging / "take" / (Path(row.label).stem + Path(row.audio_file).suffix)
+            named.parent.mkdir()
+            try:
+                os.link(root_path / row.audio_file, named)
+            except OSError:
+                shutil.copyfile(root_path / row.audio_file, named)
             with threadpool_limits(1):
-                analyse_take(root_path / row.audio_file, root_path / row.part_file, staging / "out",
+                analyse_take(named, root_path / row.part_file, staging / "out",
                              part_name=row.part_name, instrument=row.instrument,
                              progress=_reporter(engine, job_id, attempt))
         except Exception as exc:   # every failure becomes the job's message
