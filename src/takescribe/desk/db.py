@@ -137,8 +137,19 @@ def open_engine(url: str, *, pool: bool = True) -> sa.engine.Engine:
         engine = sa.create_engine(url, connect_args={"check_same_thread": False, "timeout": 10}, **options)
         event.listen(engine, "connect", _sqlite_pragmas)
     else:
-        engine = sa.create_engine(url, pool_pre_ping=True, **options)
+        engine = sa.create_engine(_postgres_driver(url), pool_pre_ping=True, **options)
     return engine
+
+
+def _postgres_driver(url: str) -> str:
+    """A plain ``postgresql://`` URL with the driver that is installed (psycopg 3, else psycopg2)."""
+    if not url.startswith("postgresql://"):
+        return url
+    try:
+        import psycopg  # noqa: F401
+        return url
+    except ImportError:
+        return "postgresql+psycopg2://" + url[len("postgresql://"):]
 
 
 def schema_version(conn) -> int:
