@@ -153,6 +153,54 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
     install_guard(app, key=key, port_of=port_of)
     kick = runner.kick if runner is not None else (lambda: None)
 
+    _handlers(app, lib)
+    _student_routes(app, lib)
+    _intake_routes(app, lib, kick=kick, watch=watch)
+    _take_routes(app, lib, kick=kick)
+    _over_time_routes(app, lib)
+    from .archive import install_archive_routes
+
+    install_archive_routes(app, lib, kick=kick)
+    return app
+
+
+def _over_time_data(lib, sid: int, pid: int):
+    from .progress import load_findings, summarize_progress
+
+    student, piece = get_row(lib, db.students, sid), get_row(lib, db.pieces, pid)
+    if student is None or piece is None:
+        return None, None, None
+    takes = []
+    for row in student_takes(lib, sid, pid):
+        folder = take_outputs(lib, row)
+        if folder is not None:
+            takes.append(load_findings(folder / "findings.json", label=row["label"], date=row["date"],
+                                       href=f"/takes/{row['id']}"))
+    return student, piece, summarize_progress(takes)
+
+
+def _over_time_routes(app, lib) -> None:
+    from .progress import progress_html, progress_json
+
+    @app.get("/students/<int:sid>/pieces/<int:pid>/over-time")
+    def over_time(sid: int, pid: int):
+        student, piece, progress = _over_time_data(lib, sid, pid)
+        if progress is None:
+            return _message("Not here", "no such student or piece in this library", status=404)
+        return render_template("over_time.html", student=student, piece=piece, n=len(progress.takes),
+                               content=progress_html(progress))
+
+    @app.get("/students/<int:sid>/pieces/<int:pid>/over-time.json")
+    def over_time_json(sid: int, pid: int):
+        student, piece, progress = _over_time_data(lib, sid, pid)
+        if progress is None:
+            return jsonify({"error": "no such student or piece in this library"}), 404
+        return jsonify(dict(progress_json(progress), student=student["name"], piece=piece["title"]))
+
+
+def _handlers(app, lib) -> None:
+    """Refusals and errors as pages (or JSON for /api/)."""
+
     @app.errorhandler(GuardError)
     def _guard_error(exc):
         return _refusal(exc.status, str(exc))
@@ -173,6 +221,10 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
     @app.errorhandler(HTTPException)
     def _http(exc):
         return _refusal(exc.code or 500, f"{exc.name}: {exc.description}")
+
+
+def _student_routes(app, lib) -> None:
+    """Students and pieces."""
 
     @app.get("/")
     def home():
@@ -230,6 +282,10 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
             staged.unlink(missing_ok=True)
         return redirect("/pieces")
 
+
+def _intake_routes(app, lib, *, kick, watch) -> None:
+    """Bringing recordings in; job states."""
+
     @app.get("/bring-in")
     def bring_in():
         return render_template(
@@ -277,6 +333,10 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
         rows = _jobs(lib, ids or None)
         return jsonify({"jobs": {str(r["id"]): {"status": r["status"], "fraction": r["fraction"],
                                                  "words": r["words"], "take": r["take_id"]} for r in rows}})
+
+
+def _take_routes(app, lib, *, kick) -> None:
+    """A take: its page, report, downloads, recording; analysing it again."""
 
     @app.get("/takes/<int:tid>")
     def take(tid: int):
@@ -327,43 +387,3 @@ def create_app(lib, *, key: str, port_of, runner=None, watch: str | None = None)
         path = lib.root / row["audio_file"]
         return send_file(path, mimetype=AUDIO_TYPES.get(path.suffix.lstrip("."), "application/octet-stream"),
                          conditional=True)
-
-    _over_time_routes(app, lib)
-    from .archive import install_archive_routes
-
-    install_archive_routes(app, lib, kick=kick)
-    return app
-
-
-def _over_time_data(lib, sid: int, pid: int):
-    from .progress import load_findings, summarize_progress
-
-    student, piece = get_row(lib, db.students, sid), get_row(lib, db.pieces, pid)
-    if student is None or piece is None:
-        return None, None, None
-    takes = []
-    for row in student_takes(lib, sid, pid):
-        folder = take_outputs(lib, row)
-        if folder is not None:
-            takes.append(load_findings(folder / "findings.json", label=row["label"], date=row["date"],
-                                       href=f"/takes/{row['id']}"))
-    return student, piece, summarize_progress(takes)
-
-
-def _over_time_routes(app, lib) -> None:
-    from .progress import progress_html, progress_json
-
-    @app.get("/students/<int:sid>/pieces/<int:pid>/over-time")
-    def over_time(sid: int, pid: int):
-        student, piece, progress = _over_time_data(lib, sid, pid)
-        if progress is None:
-            return _message("Not here", "no such student or piece in this library", status=404)
-        return render_template("over_time.html", student=student, piece=piece, n=len(progress.takes),
-                               content=progress_html(progress))
-
-    @app.get("/students/<int:sid>/pieces/<int:pid>/over-time.json")
-    def over_time_json(sid: int, pid: int):
-        student, piece, progress = _over_time_data(lib, sid, pid)
-        if progress is None:
-            return jsonify({"error": "no such student or piece in this library"}), 404
-        return jsonify(dict(progress_json(progress), student=student["name"], piece=piece["title"]))
