@@ -251,6 +251,30 @@ def test_header_names_the_take_without_grade_like_figures(tmp_path, everything):
     assert legend_kinds == present
 
 
+def test_findings_to_check_by_ear_can_be_hidden(tmp_path, everything):
+    """Findings the comparison marks ``status="check_by_ear"`` are drawn apart and can be hidden."""
+    import dataclasses
+
+    from takescribe.comparison.compare import Finding
+
+    @dataclasses.dataclass(frozen=True)
+    class CheckedFinding(Finding):  # a finding as the comparison may give it, with a status
+        status: str = "check_by_ear"
+        confidence: float = 0.4
+
+    ref, result = everything
+    wrong = next(f for f in result.findings if f.kind == "wrong_pitch")
+    findings = tuple(CheckedFinding(**{k.name: getattr(f, k.name) for k in dataclasses.fields(Finding)})
+                     if f is wrong else f for f in result.findings)
+    write_report(tmp_path, dataclasses.replace(result, findings=findings), ref)
+    text = (tmp_path / "report.html").read_text(encoding="utf-8")
+    assert 'id="show-uncertain"' in text and 'class="score score-sure"' in text
+    assert re.search(rf'<tr data-finding="{wrong.id}"[^>]*data-uncertain="1"', text)
+    assert f'data-finding="{wrong.id}" data-uncertain="1"' in text  # its piano-roll marker
+    sure = text[text.index('class="score score-sure"'):]
+    assert "wrong: " not in sure[:sure.index("</div>")] and "wrong: " in text
+
+
 @pytest.mark.parametrize("confidence, words", [(None, "without lining"), (0.9, "closely"), (0.6, "most of the take"),
                                                (0.35, "only loosely")])
 def test_lineup_in_plain_words(confidence, words):
@@ -298,6 +322,46 @@ def test_long_take_is_encoded_block_by_block():
     decoded, rate = sf.read(io.BytesIO(audio.data))
     assert audio.mime == "audio/ogg" and rate == 24000
     assert abs(len(decoded) / rate - 5.0) < 0.03
+
+
+# Colour-vision deficiency simulation, severity 1.0, on linear RGB: G. M. Machado, M. M. Oliveira
+# and L. A. F. Fernandes, "A physiologically-based model for simulation of color vision
+# deficiency", IEEE TVCG 15(6), 2009 (matrices from memory of the paper's table).
+_CVD = {
+    "protanopia": [[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216], [-0.003882, -0.048116, 1.051998]],
+    "deuteranopia": [[0.367322, 0.860646, -0.227968], [0.280085, 0.672501, 0.047413], [-0.011820, 0.042940, 0.968881]],
+    "tritanopia": [[1.255528, -0.076749, -0.178779], [-0.078411, 0.930809, 0.147602], [0.004733, 0.691367, 0.303900]],
+    "typical": np.eye(3).tolist(),
+}
+
+
+def _lab(linear_rgb: np.ndarray) -> np.ndarray:
+    # IEC 61966-2-1 (sRGB) primaries to CIE XYZ, then CIE 1976 L*a*b* with the D65 white
+    xyz = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]]) @ linear_rgb
+    n = xyz / np.array([0.95047, 1.0, 1.08883])
+    f = np.where(n > (6 / 29) ** 3, np.cbrt(n), n / (3 * (6 / 29) ** 2) + 4 / 29)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+def test_finding_colours_stay_apart_for_colour_blind_readers():
+    import colorsys
+    import itertools
+
+    from takescribe.report.styles import LISTEN_STYLE
+
+    colours = sorted({st.colour for st in KIND_STYLES.values()} | {LISTEN_STYLE.colour})
+    rgb = {c: np.array([int(c[k:k + 2], 16) / 255 for k in (1, 3, 5)]) for c in colours}
+    linear = {c: np.where(v <= 0.04045, v / 12.92, ((v + 0.055) / 1.055) ** 2.4) for c, v in rgb.items()}  # sRGB
+    for name, matrix in _CVD.items():
+        for a, b in itertools.combinations(colours, 2):
+            seen_a = _lab(np.clip(np.array(matrix) @ linear[a], 0, 1))
+            seen_b = _lab(np.clip(np.array(matrix) @ linear[b], 0, 1))
+            # a CIE76 difference of 10 is plainly visible side by side (common practice, no source)
+            assert np.linalg.norm(seen_a - seen_b) >= 10.0, (name, a, b)
+    # no green at all, so nothing reads as "correct" against a red "wrong" (hue 75..165 degrees)
+    for c, v in rgb.items():
+        hue, _, saturation = colorsys.rgb_to_hls(*v)
+        assert saturation < 0.2 or not 75 <= 360 * hue <= 165, c
 
 
 # --------------------------------------------------------------------------- hear the part
