@@ -85,6 +85,7 @@ def annotate(comparison: Comparison, reference: Any, written: Any = None, *, inc
     from music21 import musicxml
 
     score = copy.deepcopy(written) if written is not None else _score_from_notes(reference)
+    _brace_staves(score)
     index = _note_index(score)
     notes = list(getattr(reference, "notes", ()))
     note_ids = _assign_ids(index, notes, reference)
@@ -92,6 +93,15 @@ def annotate(comparison: Comparison, reference: Any, written: Any = None, *, inc
     _mark_directions(comparison, reference, score, include_uncertain=include_uncertain)
     data = musicxml.m21ToXml.GeneralObjectExporter(score).parse()
     return Annotated(data, note_ids)
+
+
+def _brace_staves(score) -> None:
+    """The staves of one instrument (a piano's two) joined by a brace, as the part prints them."""
+    from music21 import layout
+
+    staves = list(score.parts)
+    if len(staves) > 1 and not list(score.getElementsByClass(layout.StaffGroup)):
+        score.insert(0, layout.StaffGroup(staves, symbol="brace", barTogether=True))
 
 
 def _assign_ids(index: dict, notes: list, reference: Any) -> dict:
