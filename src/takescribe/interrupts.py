@@ -50,9 +50,13 @@ def signal_name(signum: int) -> str:
         return f"signal {signum}"
 
 
+def _ignore(signum, frame) -> None:
+    """A second signal during the cleanup: noted, nothing else (SIG_IGN would race with a pending one)."""
+
+
 def _raise_interrupted(signum, frame) -> None:
     for sig in _SIGNALS:
-        signal.signal(sig, signal.SIG_IGN)
+        signal.signal(sig, _ignore)
     raise Interrupted(signum)
 
 

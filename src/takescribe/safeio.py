@@ -48,6 +48,7 @@ _scratch_lock = threading.Lock()
 def write_error(path, exc: OSError) -> OutputError:
     """The :class:`OutputError` for an :class:`OSError` met while writing ``path``."""
     what = exc.strerror or type(exc).__name__
+    path = re.sub(re.escape(os.sep + STAGING_PREFIX) + r"\d+-[^" + re.escape(os.sep) + "]+", "", str(path))  # the final name
     if exc.errno in (errno.ENOSPC, errno.EDQUOT):
         return OutputError(f"{path}: cannot be written: {what} (the disk is full); free some space and run again")
     return OutputError(f"{path}: cannot be written ({what}); choose a writable output place")
