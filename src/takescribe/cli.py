@@ -40,6 +40,12 @@ class Progress:
             print(f"takescribe [{time.perf_counter() - self.start:6.1f} s] {message}", file=sys.stderr, flush=True)
 
 
+def _add_room(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--room", choices=("dry", "auto", "reverberant"), default="dry",
+                   help="reverberant: remove the room's reverberation before transcribing (WPE); auto: only when the"
+                        " take sounds strongly reverberant; dry: never (default)")
+
+
 def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--force", action="store_true", help="overwrite existing output files")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
@@ -72,6 +78,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quantized-midi", action="store_true",
                    help="write the notated rhythm to the MIDI file (default: the performed timing)")
     p.set_defaults(usage_error=p.error)
+    _add_room(p)
     _add_common(p)
 
     p = sub.add_parser("evaluate", help="score a note list against a reference note list (mir_eval conventions)")
@@ -96,6 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--allow-mismatch", action="store_true", help="compare even if the take does not seem to be the part")
     p.add_argument("--student", help="the player's name for the report's header (default: the take's artist tag)")
     p.add_argument("--title", help="the piece for the report's header (default: the score's title)")
+    _add_room(p)
     _add_common(p)
 
     p = sub.add_parser("batch", help="transcribe every take in a folder (and compare those with a matching part)")
@@ -175,7 +183,7 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
             args.take, midi_path=args.midi, notes_path=args.notes, musicxml_path=args.musicxml,
             instrument=args.instrument, score_path=args.score, part=args.part, dictionary_path=args.dictionary,
             tempo=args.tempo, time_signature=args.time_signature, grid=args.grid, midi_type=args.midi_type,
-            quantized_midi=args.quantized_midi, force=args.force, progress=progress,
+            quantized_midi=args.quantized_midi, force=args.force, progress=progress, room=args.room,
         )
         print(f"{len(out.transcription.notes)} notes; wrote " + ", ".join(str(p) for p in out.written))
         return EXIT_OK
@@ -189,7 +197,7 @@ def _run(args: argparse.Namespace, progress: Progress) -> int:
             args.take, args.part_file, args.output, part=args.part_name, instrument=args.instrument,
             dictionary_path=args.dictionary, timing_tolerance=args.timing_tolerance,
             duration_tolerance=args.duration_tolerance, allow_mismatch=args.allow_mismatch, force=args.force,
-            progress=progress, student=args.student, title=args.title,
+            progress=progress, student=args.student, title=args.title, room=args.room,
         )
         print(pipeline.format_comparison_summary(out))
         return EXIT_OK

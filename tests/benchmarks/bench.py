@@ -6,6 +6,7 @@ Usage::
     python tests/benchmarks/bench.py --corpus /tmp/big --split tuning   # the large corpus (build_corpus.py --large)
     python tests/benchmarks/bench.py --engine-only [--json out.json]
     python tests/benchmarks/bench.py --memory-only [--json out.json]
+    python tests/benchmarks/bench.py --rooms [--room-mode auto] [--split tuning]   # adds the rooms section
 
 Accuracy: every piece of the split is transcribed blind and score-informed (with its
 reference MusicXML) through :func:`takescribe.jobs.pipeline.transcribe_take`, and scored
@@ -32,6 +33,10 @@ apart as the cold start (librosa's imports and compilation).
     subprocess per take length and mode) for reading from a FLAC file and transcribing
     1-, 10- and 60-minute takes (the concatenated piano pieces of (a)), blind and
     score-informed, and the 60-to-10-minute ratio.
+
+``--rooms`` adds the rooms section (:mod:`rooms`: the split's piano and melody pieces in five
+simulated rooms, RT60 0.3-2.5 s, without and with dereverberation, with its own dry reference
+for the speed ratio); ``--rooms-only`` runs it without the accuracy section.
 
 ``--engine-only`` runs (b) and (c) alone (about a minute), ``--memory-only`` runs (d) alone
 (several minutes), without the accuracy runs.
@@ -442,6 +447,23 @@ def speed_memory(minutes_list=(1, 10, 60)) -> dict:
     return out
 
 
+# ----------------------------------------------------------------------------- rooms
+
+
+def _rooms_section(args) -> dict:
+    """The rooms section (see :mod:`rooms`), one report per split."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import rooms
+
+    out = {}
+    for split in (("tuning", "heldout") if args.split == "all" else (args.split,)):
+        entries = rooms.room_entries(CORPUS, split, quick=args.quick)
+        print(f"\nrooms ({split}): {len(entries)} pieces x {len(rooms.ROOMS)} rooms, room={args.room_mode}", flush=True)
+        out[split] = rooms.run_rooms(CORPUS, entries, room_mode=args.room_mode)
+        rooms.print_rooms(out[split])
+    return out
+
+
 # ----------------------------------------------------------------------------- main
 
 
@@ -459,6 +481,10 @@ def main(argv=None) -> int:
                         help="run only the engine part of the speed section (engine vs scikit-learn, FLOP rate)")
     parser.add_argument("--memory-only", action="store_true",
                         help="run only the peak-memory part of the speed section (several minutes)")
+    parser.add_argument("--rooms", action="store_true", help="add the rooms section (simulated rooms, dereverberation)")
+    parser.add_argument("--rooms-only", action="store_true", help="run only the rooms section")
+    parser.add_argument("--room-mode", choices=("reverberant", "auto"), default="reverberant",
+                        help="rooms section: dereverberate always, or when the recording check finds reverberation")
     args = parser.parse_args(argv)
     if args.corpus is not None:
         global CORPUS
@@ -483,6 +509,18 @@ def main(argv=None) -> int:
         report = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
                               "load_average": os.getloadavg(), "platform": platform.platform()},
                   "speed": {part: speed_engine() if args.engine_only else speed_memory()}}
+        report["machine"]["load_average_end"] = os.getloadavg()
+        if args.json:
+            from takescribe.safeio import write_text
+
+            write_text(args.json, json.dumps(report, indent=1, default=float) + "\n", force=args.force)
+            print(f"wrote {args.json}")
+        return 0
+
+    if args.rooms_only:
+        report = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
+                              "load_average": os.getloadavg(), "platform": platform.platform()},
+                  "rooms": _rooms_section(args)}
         report["machine"]["load_average_end"] = os.getloadavg()
         if args.json:
             from takescribe.safeio import write_text
@@ -522,6 +560,8 @@ def main(argv=None) -> int:
           f" {whole['informed']['rtf']:.3f}; {time.perf_counter() - t_all:.0f} s", flush=True)
     report = {"machine": machine, "split": args.split, "cold_start_seconds": cold, "pieces": rows,
               "categories": summary}
+    if args.rooms:
+        report["rooms"] = _rooms_section(args)
     if args.speed:
         print("\nspeed: whole pipeline on long takes (concatenated piano pieces and parts)", flush=True)
         report["speed"] = {"pipeline": speed_pipeline()}

@@ -38,6 +38,7 @@ from ..audio.decode import take_tags
 from ..interrupts import fault_point
 from ..safeio import staged_outputs, write_bytes, write_text
 from ..reference.part import load_part, load_reference
+from ..features.dereverb import room_signal
 from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
 from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
 
@@ -114,13 +115,16 @@ def transcribe_take(
     settings: TranscriptionSettings | None = None,
     progress: Callable[[str], None] | None = None,
     alignment=None,
+    room: str = "dry",
 ):
     """Blind or score-informed transcription of a loaded take.
 
     Returns ``(transcription, alignment)``; ``alignment`` is None without a reference.
     With a reference whose alignment confidence is below the mismatch level, a
     warning says so and the transcription falls back to blind mode (the part would
-    mislead the factorization).
+    mislead the factorization). ``room`` (dry, auto, reverberant) says whether the factorization
+    sees the take dereverberated (:func:`takescribe.features.dereverb.room_signal`); the
+    alignment always reads the take as recorded.
     """
     if instrument is None:
         program = getattr(reference, "midi_program", None)
@@ -129,8 +133,9 @@ def transcribe_take(
     long_take = len(y) > LONG_TAKE_SECONDS * sr
     blind = transcribe_long if long_take else transcribe
     fault_point("factorizing")
+    y_room = room_signal(y, sr, room=room)
     if reference is None:
-        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+        return blind(y_room, sr, instrument=instrument, dictionary=dictionary, settings=settings,
                      progress=progress), None
     if alignment is None:
         if progress:
@@ -140,15 +145,15 @@ def transcribe_take(
         warnings.warn(
             f"the take does not seem to match the part (alignment confidence {alignment.confidence:.2f});"
             " transcribing without the part", AlignmentWarning, stacklevel=2)
-        return blind(y, sr, instrument=instrument, dictionary=dictionary, settings=settings,
+        return blind(y_room, sr, instrument=instrument, dictionary=dictionary, settings=settings,
                      progress=progress), alignment
     if progress:
         progress("score-informed factorization")
     if long_take:
-        result = transcribe_long(y, sr, reference=reference, alignment=alignment, instrument=instrument,
+        result = transcribe_long(y_room, sr, reference=reference, alignment=alignment, instrument=instrument,
                                  dictionary=dictionary, settings=settings, progress=progress)
         return result, alignment
-    result = informed_transcription(y, sr, reference, alignment=alignment, instrument=instrument,
+    result = informed_transcription(y_room, sr, reference, alignment=alignment, instrument=instrument,
                                     dictionary=dictionary, settings=settings, progress=progress)
     return result, alignment
 
@@ -170,6 +175,7 @@ def transcribe_file(
     quantized_midi: bool = False,
     force: bool = False,
     progress: Callable[[str], None] | None = None,
+    room: str = "dry",
 ) -> TranscribeOutputs:
     """The ``transcribe`` job: a take (and optionally its part) to draft files.
 
@@ -188,21 +194,21 @@ def transcribe_file(
         out = transcribe_into(take_path, staged, midi_path=midi_path, notes_path=notes_path,
                              musicxml_path=musicxml_path, instrument=instrument, score_path=score_path, part=part,
                              dictionary_path=dictionary_path, tempo=tempo, time_signature=time_signature, grid=grid,
-                             midi_type=midi_type, quantized_midi=quantized_midi, progress=progress)
+                             midi_type=midi_type, quantized_midi=quantized_midi, progress=progress, room=room)
     return out
 
 
 def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None, musicxml_path=None, instrument=None,
                     score_path=None, part=None, dictionary_path=None, tempo: float | None = None, time_signature=None,
                     grid: str | None = None, midi_type: int = 1, quantized_midi: bool = False,
-                    progress: Callable[[str], None] | None = None) -> TranscribeOutputs:
+                    progress: Callable[[str], None] | None = None, room: str = "dry") -> TranscribeOutputs:
     """The work of :func:`transcribe_file`, writing each output to its staging path ``staged[path]``."""
     preset = resolve_instrument(instrument) if instrument is not None else None
     reference = load_reference(score_path, part=part) if score_path is not None else None
     dictionary = load_dictionary(dictionary_path) if dictionary_path is not None else None
     y, sr = load_take(take_path, progress=progress)
     result, alignment = transcribe_take(y, sr, instrument=preset, reference=reference, dictionary=dictionary,
-                                        progress=progress)
+                                        progress=progress, room=room)
     notation = None
     if musicxml_path is not None or quantized_midi or reference is not None or tempo or time_signature:
         if progress:
@@ -320,7 +326,7 @@ class CompareOutputs:
 
 def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictionary: Dictionary | None = None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
-                 source: str = "the take", progress: Callable[[str], None] | None = None):
+                 source: str = "the take", progress: Callable[[str], None] | None = None, room: str = "dry"):
     """Transcribe a loaded take with its part and compare them; returns ``(comparison, transcription, alignment)``.
 
     Raises
@@ -341,7 +347,7 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
             " and the part (--part) belong together, or pass --allow-mismatch to compare anyway"
         )
     result, _ = transcribe_take(y, sr, instrument=instrument, reference=reference, dictionary=dictionary,
-                                progress=progress, alignment=alignment)
+                                progress=progress, alignment=alignment, room=room)
     if progress:
         progress("comparing with the part")
     # a piano or plucked note's sound decays by itself: where the transcription ends it says
@@ -356,7 +362,7 @@ def compare_take(y: np.ndarray, sr: int, reference, *, instrument=None, dictiona
 def compare_file(take_path, score_path, output_folder, *, part=None, instrument=None, dictionary_path=None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
                  force: bool = False, progress: Callable[[str], None] | None = None,
-                 student: str | None = None, title: str | None = None) -> CompareOutputs:
+                 student: str | None = None, title: str | None = None, room: str = "dry") -> CompareOutputs:
     """The ``compare`` job: a take and its part to a practice report folder (all files or none).
 
     ``student`` and ``title`` name the player and the piece in the report's header (default:
@@ -369,7 +375,7 @@ def compare_file(take_path, score_path, output_folder, *, part=None, instrument=
         out = compare_into(job.folder(folder), take_path, score_path, part=part, instrument=instrument,
                            dictionary_path=dictionary_path, timing_tolerance=timing_tolerance,
                            duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, progress=progress,
-                           student=student, title=title)
+                           student=student, title=title, room=room)
     return CompareOutputs(out.comparison, out.transcription, out.alignment, out.reference,
                           {name: folder / name for name in out.written})
 
@@ -377,7 +383,7 @@ def compare_file(take_path, score_path, output_folder, *, part=None, instrument=
 def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=None, dictionary_path=None,
                  timing_tolerance: float = 0.1, duration_tolerance: float = 0.5, allow_mismatch: bool = False,
                  progress: Callable[[str], None] | None = None, student: str | None = None,
-                 title: str | None = None) -> CompareOutputs:
+                 title: str | None = None, room: str = "dry") -> CompareOutputs:
     """The work of :func:`compare_file`, writing the report into ``folder`` (a staging folder)."""
     loaded = load_part(score_path, part=part)
     reference = loaded.reference
@@ -386,7 +392,7 @@ def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=N
     comparison, result, alignment = compare_take(
         y, sr, reference, instrument=instrument, dictionary=dictionary, timing_tolerance=timing_tolerance,
         duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, source=str(take_path),
-        progress=progress)
+        progress=progress, room=room)
     tracks, tempo_map, time_signatures = draft_midi_tracks(result)
     draft = midi_bytes(tracks, tempo_map=tempo_map, time_signatures=time_signatures, title="takescribe draft")
     if progress:
