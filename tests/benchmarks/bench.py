@@ -6,7 +6,7 @@ Usage::
     python tests/benchmarks/bench.py --corpus /tmp/big --split tuning   # the large corpus (build_corpus.py --large)
     python tests/benchmarks/bench.py --engine-only [--json out.json]
     python tests/benchmarks/bench.py --memory-only [--json out.json]
-    python tests/benchmarks/bench.py --rooms [--room-mode auto] [--split tuning]   # adds the rooms section
+    python tests/benchmarks/bench.py --rooms [--room-mode auto] [--split tuning] [--world /work/cache/world]
 
 Accuracy: every piece of the split is transcribed blind and score-informed (with its
 reference MusicXML) through :func:`takescribe.jobs.pipeline.transcribe_take`, and scored
@@ -461,6 +461,10 @@ def _rooms_section(args) -> dict:
         print(f"\nrooms ({split}): {len(entries)} pieces x {len(rooms.ROOMS)} rooms, room={args.room_mode}", flush=True)
         out[split] = rooms.run_rooms(CORPUS, entries, room_mode=args.room_mode)
         rooms.print_rooms(out[split])
+        if args.world is not None:
+            print(f"\nrooms of the world corpus ({split}), room={args.room_mode}", flush=True)
+            out[f"world_{split}"] = rooms.run_world(args.world, split, room_mode=args.room_mode)
+            rooms.print_rooms(out[f"world_{split}"])
     return out
 
 
@@ -483,6 +487,8 @@ def main(argv=None) -> int:
                         help="run only the peak-memory part of the speed section (several minutes)")
     parser.add_argument("--rooms", action="store_true", help="add the rooms section (simulated rooms, dereverberation)")
     parser.add_argument("--rooms-only", action="store_true", help="run only the rooms section")
+    parser.add_argument("--world", type=Path, default=None,
+                        help="rooms section: also the room, distant and hall takes of the world corpus in this folder")
     parser.add_argument("--room-mode", choices=("reverberant", "auto"), default="reverberant",
                         help="rooms section: dereverberate always, or when the recording check finds reverberation")
     args = parser.parse_args(argv)

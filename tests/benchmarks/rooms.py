@@ -132,9 +132,12 @@ def _pooled_rtf(cells: list[dict]) -> float:
     return sum(c["seconds"] for c in cells) / max(sum(c["audio_seconds"] for c in cells), 1e-9)
 
 
-def summarize_rooms(rows: list[dict]) -> dict:
-    """Mean onset F per room (and for rooms RT60 <= 1 s, halls >= 2 s) and pooled RTF ratios."""
-    groups = {name: [r for r in rows if r["room"] == name] for name, *_ in ROOMS}
+def summarize_rooms(rows: list[dict], *, dry_cells: dict | None = None, names=None) -> dict:
+    """Mean onset F per room (and for rooms RT60 <= 1 s, halls >= 2 s) and pooled RTF ratios.
+
+    ``dry_cells`` (take -> blind and informed scores) default to the rows' own dry takes."""
+    names = names or [name for name, *_ in ROOMS]
+    groups = {name: [r for r in rows if r["room"] == name] for name in names}
     groups["rooms RT60 <= 1 s"] = [r for r in rows if r["rt60_s"] <= 1.05]
     groups["halls RT60 >= 2 s"] = [r for r in rows if r["rt60_s"] >= 1.95]
     summary = {}
@@ -149,9 +152,8 @@ def summarize_rooms(rows: list[dict]) -> dict:
                 block[f"{way}.{mode}.onset_offset_f"] = float(np.mean([r[way][mode]["onset_offset.f_measure"]
                                                                        for r in group]))
         summary[name] = block
-    dry_cells = {}
-    for r in rows:
-        dry_cells[r["piece"]] = r["dry"]
+    if dry_cells is None:
+        dry_cells = {r["piece"]: r["dry"] for r in rows}
     for mode in ("blind", "informed"):
         dry = _pooled_rtf([c[mode] for c in dry_cells.values()])
         recorded = _pooled_rtf([r["as_recorded"][mode] for r in rows])
@@ -189,3 +191,47 @@ def room_entries(corpus: Path, split: str, *, quick: bool = False) -> list[dict]
     if quick:
         entries = [e for c in ("piano", "melody") for e in [x for x in entries if x["category"] == c][:2]]
     return entries
+
+
+# ----------------------------------------------------------------------------- the world corpus
+
+
+WORLD_ROOMS = ("room", "distant", "hall")
+
+
+def run_world(folder: Path, split: str, *, room_mode: str = "auto") -> dict:
+    """The world corpus' room, distant and hall takes of ``split`` (``build_world.py``), as recorded
+    and with ``room=room_mode``, blind and with the part; its clean takes of the split are the dry
+    reference for the speed ratio. RT60 and microphone distance are the manifest's."""
+    from takescribe.export.noteio import read_maps
+    from takescribe.jobs.pipeline import load_take
+    from takescribe.reference.part import load_reference
+
+    takes = [t for t in json.loads((folder / "manifest.json").read_text())["takes"] if t["split"] == split
+             and t["condition"] in WORLD_ROOMS + ("clean",)]
+    rows, dry_cells = [], {}
+    for take in takes:
+        files = take["files"]
+        y, sr = load_take(folder / files["audio"])
+        truth = read_maps(folder / files["played"])
+        reference = load_reference(folder / files["part"])
+        entry = {"instrument_program": take["instrument"]}
+        if take["condition"] == "clean":
+            dry_cells[take["id"]] = _score(truth, y, sr, entry, reference, room="dry")
+            continue
+        params = take["condition_params"]
+        row = {"piece": take["id"], "split": split, "category": take["family"], "instrument": take["instrument"],
+               "room": take["condition"], "rt60_s": float(params["rt60_s"]),
+               "mic_distance_m": float(params["mic_distance_m"]),
+               "as_recorded": _score(truth, y, sr, entry, reference, room="dry"),
+               "dereverberated": _score(truth, y, sr, entry, reference, room=room_mode)}
+        rows.append(row)
+        print(f"  {take['id']:34s} {take['condition']:8s} RT60 {row['rt60_s']:4.2f} s, mic {row['mic_distance_m']:4.2f} m"
+              f"  blind {row['as_recorded']['blind']['onset.f_measure']:.3f} -> "
+              f"{row['dereverberated']['blind']['onset.f_measure']:.3f}   with part "
+              f"{row['as_recorded']['informed']['onset.f_measure']:.3f} -> "
+              f"{row['dereverberated']['informed']['onset.f_measure']:.3f}", flush=True)
+    for row in rows:
+        row["dry"] = None
+    return {"room_mode": room_mode, "rows": rows, "dry": dry_cells,
+            "summary": summarize_rooms(rows, dry_cells=dry_cells, names=WORLD_ROOMS)}
