@@ -92,3 +92,35 @@ def test_unknown_instrument_lists_known_ones(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "unknown instrument 'kazoo'" in err and "violin" in err
     assert not (tmp_path / "n.txt").exists()
+
+
+def test_evaluate_refuses_a_huge_gap_at_once(tmp_path, capsys):
+    # issue #17: a 98-byte MIDI with two notes 10 hours apart made evaluate use 4.4 GB; the span
+    # limit (takescribe.limits) refuses it before the frame rolls are allocated
+    import mido
+
+    midi = mido.MidiFile(type=0, ticks_per_beat=480)
+    track = mido.MidiTrack()
+    midi.tracks.append(track)
+    track += [mido.Message("note_on", note=60, velocity=80, time=0), mido.Message("note_off", note=60, time=480),
+              mido.Message("note_on", note=64, velocity=80, time=10 * 3600 * 2 * 480),  # 120 bpm: 960 ticks a second
+              mido.Message("note_off", note=64, time=480)]
+    path = tmp_path / "gap.mid"
+    midi.save(path)
+    assert main(["evaluate", str(path), str(path)]) == 1
+    assert "gap.mid: its events last 10.0 hours" in capsys.readouterr().err
+
+
+def test_evaluate_into_a_closed_pipe_exits_quietly(tmp_path):
+    # `takescribe evaluate ... | head -0`: the reader is gone; no traceback, no "internal error"
+    import subprocess
+    import sys
+
+    notes = tmp_path / "n.txt"
+    notes.write_text("OnsetTime\tOffsetTime\tMidiPitch\n0.0\t0.5\t60\n")
+    proc = subprocess.Popen([sys.executable, "-m", "takescribe.cli", "evaluate", str(notes), str(notes)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()  # as `head` exiting before the table is printed
+    err = proc.stderr.read().decode()
+    proc.wait(timeout=60)
+    assert err == "" and proc.returncode == 141  # 128 + SIGPIPE, the code of a program ended by SIGPIPE

@@ -535,10 +535,69 @@ def test_midi_impossible_time_signature_is_refused(tmp_path, numerator, power, s
 
 def test_midi_too_many_bars_is_refused(tmp_path):
     # the longest SMF delta time is 0x0FFFFFFF ticks (SMF 1.0 variable-length quantity, four bytes);
-    # at one tick per quarter the note would end 268 million quarters in
+    # at one tick per quarter the note would end 268 million quarters in: refused by the span limit
+    # (takescribe.limits) before any bar grid is laid out
     path = tmp_path / "long.mid"
     path.write_bytes(_midi_bytes(b"", ticks_per_quarter=1, note_ticks=0x0FFFFFFF))
-    with pytest.raises(ScoreError, match="long.mid: the part would last more than 100000 bars"):
+    with pytest.raises(ScoreError, match=r"long.mid: the parts last 37282.7 hours .* at most 3 hours are read"):
+        load_reference(path)
+
+
+def _track(events: list) -> bytes:
+    """One SMF track chunk from (delta, message bytes) pairs, ended by End of Track."""
+    body = b"".join(mido_varlen(delta) + data for delta, data in events) + b"\x00\xff\x2f\x00"
+    return b"MTrk" + len(body).to_bytes(4, "big") + body
+
+
+def mido_varlen(value: int) -> bytes:
+    # SMF 1.0 variable-length quantity: 7 bits a byte, high bit set on all but the last
+    out = [value & 0x7F]
+    value >>= 7
+    while value:
+        out.append(0x80 | (value & 0x7F))
+        value >>= 7
+    return bytes(reversed(out))
+
+
+def test_one_midi_reader_for_parts_and_note_lists(tmp_path):
+    """#14/#17: the part reader and the note-list reader give the same notes from one file.
+
+    The file uses running status (SMF 1.0: a repeated status byte may be left out), a note-on of
+    velocity 0 as a note-off (MIDI 1.0 Detailed Specification 4.2), a drum on channel 10
+    (General MIDI Level 1: percussion, left out) and a note never released (closed at End of Track).
+    """
+    from takescribe.export.midi import read_midi_notes
+
+    track = _track([
+        (0, b"\x90\x3c\x50"), (480, b"\x3c\x00"),  # C4, released by running-status velocity 0
+        (0, b"\x99\x24\x64"), (240, b"\x89\x24\x00"),  # a bass drum on channel 10
+        (0, b"\x90\x40\x50"), (960, b"\xb0\x07\x64"),  # E4, never released; the track goes on 960 ticks
+    ])
+    path = tmp_path / "one.mid"
+    path.write_bytes(b"MThd" + (6).to_bytes(4, "big") + (0).to_bytes(2, "big") + (1).to_bytes(2, "big")
+                     + (480).to_bytes(2, "big") + track)
+    with pytest.warns(UserWarning) as caught:
+        as_list = read_midi_notes(path)
+        as_part = load_reference(path).to_notes()
+    messages = " ".join(str(w.message) for w in caught)
+    assert "channel 10" in messages and "never released" in messages
+    # 120 bpm (SMF default): 480 ticks = 0.5 s; E4 from tick 720 (0.75 s) to End of Track at tick 1680 (1.75 s)
+    assert [(n.onset, n.offset, n.pitch) for n in as_list] == [(0.0, 0.5, 60), (0.75, 1.75, 64)]
+    assert [(n.onset, n.offset, n.pitch) for n in as_part] == [(n.onset, n.offset, n.pitch) for n in as_list]
+
+
+def test_part_over_the_measure_limit_is_refused_at_once(tmp_path):
+    # music21's reader slows with the square of a part's length (10,000 measures took 5 minutes):
+    # the limit is checked on the safe XML tree before music21 sees the file
+    from takescribe.limits import LIMITS
+
+    measure = '<measure number="1"><note><pitch><step>C</step><octave>4</octave></pitch><duration>1</duration></note></measure>'
+    text = ('<?xml version="1.0"?><score-partwise version="4.0"><part-list><score-part id="P1"><part-name>F</part-name>'
+            '</score-part></part-list><part id="P1">' + measure * (LIMITS.max_part_measures + 1) + "</part></score-partwise>")
+    path = tmp_path / "long.musicxml"
+    path.write_text(text)
+    with pytest.raises(ScoreError, match=f"long.musicxml: {LIMITS.max_part_measures + 1} measures in one part.*"
+                                         f"at most {LIMITS.max_part_measures} a part"):
         load_reference(path)
 
 

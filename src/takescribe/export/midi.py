@@ -26,12 +26,25 @@ Conventions
   musicians) is the General MIDI percussion channel and is never used for
   these pitched tracks; tracks without a channel get the lowest free one of
   0..8, 10..15.
-- **Reading**: every track; tempo changes from any track apply to all tracks
-  (format 0 and 1; in format 2 each track keeps its own). A note-on with
-  velocity 0 is a note-off. Overlapping notes of one pitch and channel are
-  closed first-in, first-out. Notes still sounding at the end of their track
-  are closed there. Notes of zero length (on and off on one tick) are
-  dropped. With ``sustain=True`` the sustain pedal (controller 64, value >= 64
+- **Reading** (:func:`pair_notes` is the one reader of note events, used here and by
+  :mod:`takescribe.reference.part` for MIDI parts): every track; tempo changes from any
+  track apply to all tracks (format 0 and 1; in format 2 each track keeps its own).
+
+  - *Running status* (SMF 1.0, "MIDI events": a channel message may omit its status
+    byte when it repeats the previous one) is decoded by mido's parser, so a file with
+    and without it gives the same notes.
+  - *Note-on with velocity 0 is a note-off* (MIDI 1.0 Detailed Specification 4.2,
+    "Note On/Off").
+  - *Channel 10* (index 9) carries General MIDI percussion (General MIDI System Level 1:
+    key numbers there name drums, not pitches): its notes are left out, with a warning.
+  - *Unreleased notes*: the specifications do not say; a note still sounding when its
+    track ends is closed at the track's End of Track event (which SMF 1.0 requires at the
+    end of every track), with a warning (common practice, no source).
+  - Overlapping notes of one pitch and channel are closed first-in, first-out; notes of
+    zero length (on and off on one tick) are dropped.
+  - A file whose notes would last longer than :attr:`takescribe.limits.SizeLimits.max_span_seconds`
+    (a huge delta time) or hold more than ``max_notes`` is refused before notes are built.
+ With ``sustain=True`` the sustain pedal (controller 64, value >= 64
   = down) holds a note released while the pedal is down until the pedal is
   released or the same key is struck again on that channel, whichever comes
   first (the rule used for piano datasets by Hawthorne et al. 2018, from
@@ -57,8 +70,11 @@ from typing import Iterable, Sequence
 
 import mido
 
+import warnings
+
 from .. import safeio
-from ..errors import InputError, NoteListError
+from ..errors import InputError, NoteListError, TakescribeWarning
+from ..limits import check_note_count, check_span
 from ..notes import Note, sort_notes, validate_notes
 
 __all__ = [
@@ -67,6 +83,8 @@ __all__ = [
     "write_midi",
     "midi_bytes",
     "read_midi_notes",
+    "pair_notes",
+    "PairedNotes",
     "read_midi_tempo_map",
     "read_midi_time_signatures",
 ]
@@ -484,6 +502,72 @@ def read_midi_time_signatures(path: str | os.PathLike) -> tuple[tuple[float, int
     return tuple((tempo.tick_to_seconds(tick), n, d) for tick, (n, d) in sorted(found.items()))
 
 
+@dataclass(frozen=True)
+class PairedNotes:
+    """Notes of one track in ticks, from :func:`pair_notes`.
+
+    Attributes
+    ----------
+    spans : list of (on_tick, off_tick, channel, pitch, velocity)
+        In order of release.
+    percussion : int
+        Notes left out because they are on channel 10.
+    unreleased : int
+        Notes closed at the end of the track.
+    """
+
+    spans: list
+    percussion: int
+    unreleased: int
+
+
+def pair_notes(events: Sequence[tuple[int, mido.Message]], *, end_tick: int | None = None) -> PairedNotes:
+    """Pair note-ons with note-offs in one track of absolute-tick events (module Conventions, Reading)."""
+    open_notes: dict[tuple[int, int], deque] = {}
+    spans: list[tuple[int, int, int, int, int]] = []
+    percussion = 0
+    end = events[-1][0] if events else 0 if end_tick is None else end_tick
+    for tick, msg in events:
+        kind = msg.type
+        if kind not in ("note_on", "note_off"):
+            continue
+        if msg.channel == PERCUSSION_CHANNEL:
+            percussion += kind == "note_on" and msg.velocity > 0
+            continue
+        if kind == "note_on" and msg.velocity > 0:
+            open_notes.setdefault((msg.channel, msg.note), deque()).append((tick, msg.velocity))
+        else:
+            queue = open_notes.get((msg.channel, msg.note))
+            if queue:
+                on, velocity = queue.popleft()
+                spans.append((on, tick, msg.channel, msg.note, velocity))
+    unreleased = 0
+    for (channel, pitch), queue in open_notes.items():
+        for on, velocity in queue:
+            spans.append((on, end, channel, pitch, velocity))
+            unreleased += 1
+    return PairedNotes(spans, percussion, unreleased)
+
+
+def warn_paired(path, percussion: int, unreleased: int) -> None:
+    """The warnings of :func:`pair_notes`' two departures from a plain reading."""
+    if percussion:
+        warnings.warn(f"{path}: {percussion} notes on channel 10 (General MIDI percussion) left out", TakescribeWarning,
+                      stacklevel=3)
+    if unreleased:
+        warnings.warn(f"{path}: {unreleased} notes are never released; they end where their track ends",
+                      TakescribeWarning, stacklevel=3)
+
+
+def check_midi_span(path, midi: mido.MidiFile, tracks, tempo_maps) -> None:
+    """Refuse a file whose last event lies beyond the span limit, before notes are built."""
+    span = 0.0
+    for events, tempo in zip(tracks, tempo_maps):
+        if events:
+            span = max(span, tempo.tick_to_seconds(events[-1][0]))
+    check_span(span, path, what="its events", error=NoteListError)
+
+
 def read_midi_notes(path: str | os.PathLike, *, sustain: bool = False) -> list[Note]:
     """All notes of a MIDI file, in seconds.
 
@@ -508,30 +592,24 @@ def read_midi_notes(path: str | os.PathLike, *, sustain: bool = False) -> list[N
     path, midi = _open_midi(path)
     tracks = [_absolute(t) for t in midi.tracks]
     tempo_maps = _tempo_maps(midi, tracks)
+    check_midi_span(path, midi, tracks, tempo_maps)
 
     # raw notes: (track, channel, pitch, on_tick, off_tick, velocity)
     raw: list[list] = []
     pedal_changes: dict[tuple[int, int], list[tuple[int, bool]]] = {}  # (group, channel) -> changes
     track_ends = []
+    percussion = unreleased = 0
     for t, events in enumerate(tracks):
         group = t if midi.type == 2 else 0  # which tracks share channels
-        open_notes: dict[tuple[int, int], deque] = {}
-        end = events[-1][0] if events else 0
-        track_ends.append(end)
+        track_ends.append(events[-1][0] if events else 0)
+        paired = pair_notes(events)
+        percussion, unreleased = percussion + paired.percussion, unreleased + paired.unreleased
+        raw += [[t, channel, pitch, on, off, velocity] for on, off, channel, pitch, velocity in paired.spans]
         for tick, msg in events:
-            kind = msg.type
-            if kind == "note_on" and msg.velocity > 0:
-                open_notes.setdefault((msg.channel, msg.note), deque()).append((tick, msg.velocity))
-            elif kind == "note_off" or (kind == "note_on" and msg.velocity == 0):
-                queue = open_notes.get((msg.channel, msg.note))
-                if queue:
-                    on, velocity = queue.popleft()
-                    raw.append([t, msg.channel, msg.note, on, tick, velocity])
-            elif kind == "control_change" and msg.control == 64:
+            if msg.type == "control_change" and msg.control == 64:
                 pedal_changes.setdefault((group, msg.channel), []).append((tick, msg.value >= 64))
-        for (channel, pitch), queue in open_notes.items():
-            for on, velocity in queue:
-                raw.append([t, channel, pitch, on, end, velocity])
+        check_note_count(len(raw), path, error=NoteListError)
+    warn_paired(path, percussion, unreleased)
 
     if sustain and pedal_changes:
         _apply_sustain(raw, pedal_changes, track_ends, midi.type == 2)

@@ -15,6 +15,8 @@ Conventions
   numbers 0..127 (``60`` or ``60.0``); onsets >= 0; offsets after onsets.
   MAPS has no velocity, so notes read get velocity 80 (the :class:`Note`
   default). Every error names the file and the line.
+- Limits: more than :attr:`takescribe.limits.SizeLimits.max_notes` notes, or a span
+  over ``max_span_seconds``, is refused with the limit named (every format).
 - Writing: the header, then one note per line in :func:`sort_notes` order,
   tab-separated, times with 6 decimals (1 µs), pitch as an integer, ``\\n``
   line ends, UTF-8; always through :mod:`takescribe.safeio`.
@@ -36,6 +38,7 @@ from typing import Sequence
 from .. import safeio
 from ..errors import InputError, NoteListError
 from ..export.midi import read_midi_notes
+from ..limits import check_note_count, check_span
 from ..notes import Note, sort_notes, validate_notes
 
 __all__ = [
@@ -48,6 +51,7 @@ __all__ = [
     "read_maps",
     "write_maps",
     "read_notes",
+    "check_note_list",
 ]
 
 #: Column names of the MAPS header line.
@@ -172,7 +176,15 @@ def read_maps(path: str | os.PathLike) -> list[Note]:
         ) from exc
     if "\x00" in text:
         raise NoteListError(f"{path}: contains NUL bytes; this is a binary file, not a MAPS note list")
-    return parse_maps(text, source=str(path))
+    notes = parse_maps(text, source=str(path))
+    check_note_list(notes, path)
+    return notes
+
+
+def check_note_list(notes: Sequence[Note], source) -> None:
+    """Refuse a note list over the limits of :mod:`takescribe.limits` (notes, span in seconds)."""
+    check_note_count(len(notes), source, error=NoteListError)
+    check_span(max((n.offset for n in notes), default=0.0), source, error=NoteListError)
 
 
 def format_maps(notes: Sequence[Note]) -> str:

@@ -36,6 +36,7 @@ from ..report.practice import ReportDetails, write_report
 from ..report.voice import part_voice
 from ..audio.decode import take_tags
 from ..interrupts import fault_point
+from ..limits import check_frame_cost
 from ..safeio import staged_outputs, write_bytes, write_text
 from ..reference.part import load_part, load_reference
 from ..features.dereverb import room_signal
@@ -264,6 +265,8 @@ def evaluate_files(estimate_path, reference_path, *, json_path=None, sustain: bo
         staged = job.file(json_path) if json_path is not None else None
         estimate = read_notes(estimate_path, sustain=sustain)
         reference = read_notes(reference_path, sustain=sustain, part=part)
+        span = max([n.offset for n in estimate] + [n.offset for n in reference] + [0.0])
+        check_frame_cost(span, f"{estimate_path} and {reference_path}")  # refused before the rolls are allocated
         scores = evaluate_notes(reference, estimate)
         if staged is not None:
             write_text(staged, json.dumps(scores, indent=2, sort_keys=True) + "\n")

@@ -51,6 +51,8 @@ from typing import Sequence
 import numpy as np
 
 from ..errors import ScoreError
+from ..export.midi import pair_notes, warn_paired
+from ..limits import LIMITS, check_note_count, check_span
 from ..notes import Note
 
 __all__ = [
@@ -574,6 +576,7 @@ def _check_xml(data: bytes, path: Path) -> str:
             "<score-timewise>); export the score as MusicXML"
         )
     _check_meters(root, path)
+    _check_size(root, tag, path)
     if tag == "score-timewise":
         # music21 reads partwise only; MusicXML defines the two as transpositions of each other
         return _timewise_to_partwise(root)
@@ -586,6 +589,37 @@ def _check_xml(data: bytes, path: Path) -> str:
     else:  # pragma: no cover - defusedxml already decoded it, so one of the above works
         raise ScoreError(f"{path}: cannot decode the XML text; save it as UTF-8")
     return text.lstrip("\ufeff")
+
+
+def _local(el) -> str:
+    return el.tag.rsplit("}", 1)[-1] if isinstance(el.tag, str) else ""
+
+
+def _check_size(root, tag: str, path: Path) -> None:
+    """Refuse, before music21 sees it, a score whose reading would take minutes (:mod:`takescribe.limits`).
+
+    One pass over the checked tree: measures per part and in all, and notes.
+    """
+    per_part: dict[str, int] = {}
+    if tag == "score-partwise":
+        for part in root:
+            if _local(part) == "part":
+                per_part[part.get("id", "")] = sum(_local(m) == "measure" for m in part)
+    else:
+        for measure in root:
+            if _local(measure) == "measure":
+                for part in measure:
+                    if _local(part) == "part":
+                        per_part[part.get("id", "")] = per_part.get(part.get("id", ""), 0) + 1
+    largest = max(per_part.values(), default=0)
+    total = sum(per_part.values())
+    if largest > LIMITS.max_part_measures or total > LIMITS.max_score_measures:
+        raise ScoreError(
+            f"{path}: {largest} measures in one part, {total} in all; at most {LIMITS.max_part_measures} a part and"
+            f" {LIMITS.max_score_measures} in all are read (the MusicXML reader slows with the square of the length);"
+            " export the passage you practise")
+    notes = sum(1 for el in root.iter() if _local(el) == "note")
+    check_note_count(notes, path, error=ScoreError)
 
 
 def _check_meters(root, path: Path) -> None:
@@ -808,10 +842,10 @@ def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str |
     for t_index, track in enumerate(mid.tracks):
         tick = 0
         name, inst_name, program = None, None, None
-        pending: dict[tuple[int, int], list[tuple[int, int]]] = {}
-        spans: list[tuple[int, int, int, int]] = []  # (start, end, pitch, channel)
+        events = []
         for msg in track:
             tick += msg.time
+            events.append((tick, msg))
             if msg.is_meta:
                 if msg.type == "set_tempo":
                     if msg.tempo <= 0:
@@ -833,14 +867,9 @@ def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str |
                 continue
             if msg.type == "program_change" and program is None and msg.channel != 9:
                 program = int(msg.program)
-            elif msg.type in ("note_on", "note_off") and msg.channel != 9:  # channel 10: percussion
-                k = (msg.channel, msg.note)
-                if msg.type == "note_on" and msg.velocity > 0:
-                    pending.setdefault(k, []).append((tick, msg.velocity))
-                elif pending.get(k):
-                    start, _ = pending[k].pop(0)
-                    if tick > start:
-                        spans.append((start, tick, msg.note, msg.channel))
+        paired = pair_notes(events)  # the one MIDI note reader (takescribe.export.midi, Conventions)
+        warn_paired(path, paired.percussion, paired.unreleased)
+        spans = [(s, e, pitch, c) for s, e, c, pitch, _v in paired.spans if e > s]
         parts.append(_RawPart(
             name=name or f"Track {t_index + 1}", instrument_name=inst_name or (name or ""),
             midi_program=program,
@@ -851,12 +880,27 @@ def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str |
     return parts, tempo_map, time_sigs, key_fifths, mode
 
 
+def _quarters_to_seconds(q: float, tempo_map: list) -> float:
+    """Seconds at quarter ``q`` under ``(quarter, bpm)`` changes (120 bpm before the first)."""
+    seconds, at, bpm = 0.0, 0.0, DEFAULT_BPM
+    for start, new_bpm in sorted(tempo_map):
+        if start >= q:
+            break
+        seconds += (start - at) * 60.0 / bpm
+        at, bpm = start, new_bpm
+    return seconds + (q - at) * 60.0 / bpm
+
+
 def _midi_candidates(path: Path) -> tuple[list[_RawPart], list, list, int, str | None]:
     mid = _read_midi(path)
     parts, tempo_map, time_sigs, fifths, mode = _midi_parts(mid, path)
     with_notes = [p for p in parts if p.notes]
     if not with_notes:
         raise ScoreError(f"{path}: the MIDI file has no (pitched) notes; choose a file with the part in it")
+    # limits by cost (takescribe.limits), before any bar grid or note is laid out
+    end_q = max(r.q + r.dur for p in with_notes for r in p.notes)
+    check_span(_quarters_to_seconds(end_q, tempo_map), path, what="the parts", error=ScoreError)
+    check_note_count(sum(len(p.notes) for p in with_notes), path, error=ScoreError)
     return with_notes, tempo_map, time_sigs, fifths, mode
 
 
