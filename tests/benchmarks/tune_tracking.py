@@ -5,8 +5,9 @@ Usage::
     python tests/benchmarks/tune_tracking.py [--split tuning|heldout] [--factorization JSON] [--grid JSON]
 
 The factorization runs once per piece (its settings from ``--factorization``, a JSON object of
-``TranscriptionSettings`` fields); the note-tracking grid (``--grid``, a JSON object of lists)
-is then swept on the cached activations. Prints the onset F-measure (mir_eval conventions,
+``TranscriptionSettings`` fields); the note-tracking grid (``--grid``, a JSON object of lists of
+``TrackingSettings`` fields, or ``ghost_ratio``) is then swept on the cached activations with the
+draft's own tracking (:func:`takescribe.transcription.blind.track_notes`). Prints the onset F-measure (mir_eval conventions,
 through takescribe.evaluation.metrics) per category and setting, best first. Never tune on held-out.
 """
 
@@ -25,11 +26,13 @@ from takescribe.audio.load import load_audio
 from takescribe.evaluation.metrics import note_scores
 from takescribe.transcription.instruments import resolve_instrument
 from takescribe.export.noteio import read_maps
-from takescribe.transcription.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
-from takescribe.transcription.blind import normalize_spectrogram, settings_for, transcribe
+from takescribe.transcription.blind import normalize_spectrogram, settings_for, track_notes, transcribe
+from takescribe.transcription.settings import TrackingSettings
+from takescribe.transcription.tracking import pitch_novelty
 
 ROOT = Path(__file__).resolve().parents[2]
 CORPUS = ROOT / "fixtures" / "corpus"
+TRACKING_FIELDS = {f.name for f in dataclasses.fields(TrackingSettings)}
 
 
 def main(argv=None) -> int:
@@ -59,16 +62,11 @@ def main(argv=None) -> int:
         kw = dict(zip(grid, values))
         per = {}
         for e, tr, settings, ref, preset, nov in cache:
-            s = dataclasses.replace(settings, **kw)
-            notes = activations_to_notes(
-                tr.H, tr.dictionary.pitches, tr.spectrogram.frame_times, onset_threshold=s.onset_threshold,
-                offset_threshold=s.offset_threshold, release_ratio=s.release_ratio, reonset_rise=s.reonset_rise,
-                reonset_frames=s.reonset_frames,
-                min_duration=s.min_duration, smoothing=s.smoothing, polyphonic=preset.polyphonic,
-                onset_shift=s.onset_shift, attack_fraction=s.attack_fraction, reonset_dip=s.reonset_dip,
-                local_window=s.local_window, local_floor=s.local_floor, novelty=nov if s.use_novelty else None,
-                novelty_threshold=s.novelty_threshold, novelty_snap=s.novelty_snap, max_rise=s.max_rise, valley_dip=s.valley_dip)
-            notes = suppress_harmonic_ghosts(notes, ratio=s.ghost_ratio)
+            tracking_kw = {k: v for k, v in kw.items() if k in TRACKING_FIELDS}
+            s = dataclasses.replace(settings.with_tracking(**tracking_kw),
+                                    **{k: v for k, v in kw.items() if k not in TRACKING_FIELDS})
+            notes = track_notes(tr.H, tr.dictionary.pitches, tr.spectrogram.frame_times, settings=s,
+                                polyphonic=preset.polyphonic, novelty=nov if s.use_novelty else None)
             import warnings
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")

@@ -2,16 +2,26 @@
 
 # `takescribe.transcription` was a module before 0.2; its public names stay importable here.
 from .blind import (  # noqa: F401
-    TranscriptionSettings,
-    DEFAULT_SETTINGS,
-    POLYPHONIC_SETTINGS,
-    MELODIC_SETTINGS,
-    onset_exemption,
-    settings_for,
     Transcription,
     noise_templates,
     normalize_spectrogram,
+    onset_exemption,
+    track_notes,
     transcribe,
 )
+from .settings import (  # noqa: F401
+    DEFAULT_SETTINGS,
+    FAINT_SETTINGS,
+    MELODIC_SETTINGS,
+    POLYPHONIC_SETTINGS,
+    SCORE_PRIOR,
+    FaintSettings,
+    ScorePrior,
+    TrackingSettings,
+    TranscriptionSettings,
+    settings_for,
+)
 
-__all__ = ['TranscriptionSettings', 'DEFAULT_SETTINGS', 'POLYPHONIC_SETTINGS', 'MELODIC_SETTINGS', 'onset_exemption', 'settings_for', 'Transcription', 'noise_templates', 'normalize_spectrogram', 'transcribe']
+__all__ = ["TranscriptionSettings", "TrackingSettings", "ScorePrior", "FaintSettings", "DEFAULT_SETTINGS",
+           "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "SCORE_PRIOR", "FAINT_SETTINGS", "onset_exemption",
+           "settings_for", "Transcription", "noise_templates", "normalize_spectrogram", "track_notes", "transcribe"]

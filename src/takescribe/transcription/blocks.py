@@ -40,34 +40,41 @@ Conventions
 - The result is a :class:`takescribe.transcription.Transcription` whose
   ``spectrogram``, ``H`` and ``H_initial`` are ``None`` (holding them would make
   memory grow with the take); ``timings`` also gives ``n_blocks``.
-- With a reference part, the score prior (mask and dual threshold) of
-  :mod:`takescribe.informed` is computed per block from the alignment of the whole take.
+- With a reference part, the score prior of one-pass transcription
+  (:func:`takescribe.transcription.prior.part_prior`: mask, dual threshold, starts and
+  repeats) is computed per block from the alignment of the whole take, and the "to check
+  by ear" evidence (:func:`takescribe.transcription.evidence.faint_evidence`) is taken from
+  each block's activations while they are at hand: ``Transcription.faint``.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import tempfile
 import time
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
 import numpy as np
 
 from ..audio.load import release_samples
-from ..transcription.dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
 from ..errors import InputError
-from ..transcription.informed import INFORMED_DEFAULTS, score_mask
-from ..transcription.instruments import Instrument, resolve_instrument
-from ..transcription.nmf import decompose
-from ..notes import Note, sort_notes
 from ..features.spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
-from ..transcription.tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
-from ..transcription.blind import Transcription, TranscriptionSettings, noise_templates, onset_exemption, settings_for
+from ..notes import Note, sort_notes
+from .blind import Transcription, initial_dictionary, noise_templates, track_notes
+from .dictionary import Dictionary, adapt_dictionary
+from .evidence import faint_evidence, restrikes
+from .instruments import Instrument, resolve_instrument
+from .nmf import decompose
+from .prior import PartPrior, part_prior, prior_pitches
+from .settings import SCORE_PRIOR, ScorePrior, TranscriptionSettings, settings_for
+from .tracking import pitch_novelty
 
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
 
-#: Takes longer than this (seconds) are transcribed in blocks by :func:`takescribe.pipeline.transcribe_take`.
+#: Takes longer than this (seconds) are transcribed in blocks by :func:`takescribe.jobs.pipeline.transcribe_take`.
 LONG_TAKE_SECONDS = 150.0
 
 
@@ -110,9 +117,231 @@ def _frame_start(V: np.ndarray, W_colsum_mean: float, K: int) -> np.ndarray:
     return np.repeat(np.maximum(energy, 1e-6).astype(V.dtype)[None, :], K, axis=0)
 
 
-def _novelty(V: np.ndarray, W: np.ndarray, peak: float, *, compression: float = 100.0) -> np.ndarray:
+def _novelty(V: np.ndarray, W: np.ndarray, peak: float) -> np.ndarray:
     """Unscaled per-pitch onset novelty with the whole take's peak (the caller applies the scale)."""
-    return pitch_novelty(V, W, compression=compression, peak=peak, scale=1.0)
+    return pitch_novelty(V, W, peak=peak, scale=1.0)
+
+
+@dataclass(frozen=True)
+class _Plan:
+    """What every pass over the blocks shares."""
+
+    y: np.ndarray
+    sr: int
+    layout: list
+    folder: Path
+    preset: Instrument
+    settings: TranscriptionSettings
+    tuning: float
+    stride: int
+    context: int
+    reference: object = None
+    alignment: object = None
+    pitches: np.ndarray | None = None
+    prior: ScorePrior = SCORE_PRIOR
+    hop: int = HOP_LENGTH
+
+    @property
+    def frame_seconds(self) -> float:
+        return self.hop / self.sr
+
+    @property
+    def novelty(self) -> bool:
+        """Onset novelty is kept: for tracking (melodic), or for the restrikes of struck notes (with a part)."""
+        return self.settings.use_novelty or (self.reference is not None and self.preset.decaying)
+
+    def part(self, frames: np.ndarray, rows: np.ndarray | None, *, hints: bool = True) -> PartPrior | None:
+        """The part's prior for these take frames and template rows (None without a part)."""
+        if self.reference is None:
+            return None
+        return part_prior(self.reference, self.alignment, self.pitches, frames * self.frame_seconds,
+                          onset_threshold=self.settings.tracking.onset_threshold, prior=self.prior,
+                          hints=hints).rows(rows)
+
+    def sampled(self, core_start: int, core_stop: int) -> np.ndarray:
+        """The frames of a core in the even sample over the whole take."""
+        return np.arange(core_start + (-core_start) % self.stride, core_stop, self.stride)
+
+
+@dataclass
+class _Scan:
+    """What the first pass learns: templates, the normalisation scale, peaks, an even sample of frames."""
+
+    initial: Dictionary | None = None
+    rows: np.ndarray | None = None
+    total: float = 0.0
+    v_peak: float = 0.0
+    samples: list = dataclasses.field(default_factory=list)
+    sample_masks: list = dataclasses.field(default_factory=list)
+
+
+def _first_pass(plan: _Plan, dictionary: Dictionary | None, timings: dict) -> _Scan:
+    """Spectrograms of every block (kept on disk), their sums and peaks, and the adaptation sample."""
+    scan = _Scan()
+    for b, (start, core_start, core_stop, stop) in enumerate(plan.layout):
+        t0 = time.perf_counter()
+        spec, V = _block_spectrogram(plan.y, plan.sr, start, stop, plan.tuning, plan.hop)
+        release_samples(plan.y, start * plan.hop, stop * plan.hop)  # a take spilled to a file leaves memory again
+        timings["spectrogram"] += time.perf_counter() - t0
+        if scan.initial is None:
+            scan.initial = initial_dictionary(spec, plan.preset, dictionary, plan.pitches)
+            scan.rows = np.searchsorted(plan.pitches, scan.initial.pitches) if plan.pitches is not None else None
+        Vc = V[:, core_start - start: core_stop - start]
+        scan.total += float(Vc.sum(dtype=np.float64))
+        scan.v_peak = max(scan.v_peak, float(Vc.max(initial=0.0)))
+        np.save(plan.folder / f"V{b}.npy", V)
+        picked = plan.sampled(core_start, core_stop)
+        scan.samples.append(V[:, picked - start])
+        if plan.reference is not None:
+            scan.sample_masks.append(plan.part(picked, scan.rows, hints=False).mask)
+    return scan
+
+
+def _with_noise_rows(mask: np.ndarray | None, n_noise: int) -> np.ndarray | None:
+    """The mask with rows of ones for the broadband templates."""
+    if mask is None or not n_noise:
+        return mask
+    return np.vstack([mask, np.ones((n_noise, mask.shape[1]), mask.dtype)])
+
+
+def _factorization_options(plan: _Plan) -> dict:
+    """Fixed iterations, no early stop: every block does exactly the same work."""
+    s = plan.settings
+    return dict(beta=s.beta, n_iter=s.n_iter, tol=0.0, check_every=max(s.n_iter, 1), continuity=s.continuity,
+                sparsity=s.sparsity, mask_penalty=plan.prior.mask_penalty if plan.reference is not None else 0.0)
+
+
+def _adapt(plan: _Plan, scan: _Scan, inv_scale: np.float32, say) -> tuple[Dictionary, np.ndarray, np.ndarray]:
+    """The one template adaptation, on the sampled frames: ``(adapted, W0, W1)`` with the noise columns."""
+    s, initial = plan.settings, scan.initial
+    K, n_noise = initial.n_pitches, s.noise_templates
+    noise = noise_templates(initial.W.shape[0], n_noise)
+    W0 = np.hstack([initial.W, noise]).astype(np.float32)
+    adapted = initial
+    if s.adapt:
+        say("adapting templates on frames sampled over the whole take")
+        Vs = np.hstack(scan.samples) * inv_scale
+        ms = _with_noise_rows(np.hstack(scan.sample_masks), n_noise) if scan.sample_masks else None
+        first = decompose(Vs, W0, H_init=_frame_start(Vs, float(W0.sum(axis=0).mean()), K + n_noise), mask=ms,
+                          **_factorization_options(plan))
+        V_pitched = np.maximum(Vs - noise @ first.H[K:], 0.0).astype(np.float32)
+        adapted = adapt_dictionary(V_pitched, initial, first.H[:K], n_iter=s.adapt_iter, beta=s.beta,
+                                   min_activation=s.adapt_min_activation)
+    return adapted, W0, np.hstack([adapted.W, noise]).astype(np.float32)
+
+
+def _second_pass(plan: _Plan, scan: _Scan, adapted: Dictionary, W0, W1, inv_scale, timings, say):
+    """Factorize each block; keep its core activations (and onset novelty) on disk.
+
+    Returns the largest activation of the take and the novelty's scale (0 without novelty).
+    """
+    K = scan.initial.n_pitches
+    colsum0 = float(W0.sum(axis=0).mean())
+    options = _factorization_options(plan)
+    peak, novelty_sample = 0.0, []
+    for b, (start, core_start, core_stop, stop) in enumerate(plan.layout):
+        say(f"block {b + 1}/{len(plan.layout)}: factorization")
+        t0 = time.perf_counter()
+        V = np.load(plan.folder / f"V{b}.npy")
+        V *= inv_scale
+        timings["spectrogram"] += time.perf_counter() - t0
+        t0 = time.perf_counter()
+        part = plan.part(np.arange(start, stop), scan.rows, hints=False)
+        mask = _with_noise_rows(None if part is None else part.mask, plan.settings.noise_templates)
+        H = decompose(V, W0, H_init=_frame_start(V, colsum0, W0.shape[1]), mask=mask, **options).H
+        if plan.settings.adapt:
+            H = decompose(V, W1, H_init=H, mask=mask, **options).H
+        core = slice(core_start - start, core_stop - start)
+        Hc = np.ascontiguousarray(H[:K, core])
+        peak = max(peak, float(Hc.max(initial=0.0)))
+        np.save(plan.folder / f"{b}.npy", Hc)
+        if plan.novelty:
+            N = _novelty(V, adapted.W, scan.v_peak * inv_scale)[:, core]
+            np.save(plan.folder / f"N{b}.npy", np.ascontiguousarray(N))
+            novelty_sample.append(N[:, plan.sampled(core_start, core_stop) - core_start])
+        timings["factorization"] += time.perf_counter() - t0
+    novelty_scale = float(np.percentile(np.hstack(novelty_sample), 99.5)) if novelty_sample else 0.0
+    return peak, novelty_scale
+
+
+def _around(plan: _Plan, prefix: str, b: int) -> tuple[np.ndarray, int]:
+    """Block b's core with the end of the previous core (its context) and all of the next one."""
+    parts = [np.load(plan.folder / f"{prefix}{b}.npy")]
+    first_frame = plan.layout[b][1]
+    if b > 0 and plan.context:
+        left = np.load(plan.folder / f"{prefix}{b - 1}.npy")[:, -plan.context:]
+        parts.insert(0, left)
+        first_frame -= left.shape[1]
+    if b + 1 < len(plan.layout):
+        parts.append(np.load(plan.folder / f"{prefix}{b + 1}.npy"))
+    return np.hstack(parts), first_frame
+
+
+def _track_blocks(plan: _Plan, scan: _Scan, adapted: Dictionary, peak: float, novelty_scale: float):
+    """Notes (and, with a part, faint notes) block by block: each block owns the notes whose onset lies in its core."""
+    notes: list[Note] = []
+    faint: list[Note] = []
+    settings = plan.settings
+    if plan.reference is not None:
+        # harmonic ghosts: notes the part starts are exempt, so the informed ratio applies
+        settings = dataclasses.replace(settings, ghost_ratio=plan.prior.ghost_ratio)
+    for b, (start, core_start, core_stop, stop) in enumerate(plan.layout):
+        if peak <= 0:
+            break
+        H, first_frame = _around(plan, "", b)
+        novelty = None
+        if plan.novelty:
+            novelty, _ = _around(plan, "N", b)
+            if novelty_scale > 0:
+                novelty /= np.float32(novelty_scale)
+        frames = np.arange(first_frame, first_frame + H.shape[1])
+        times = frames * plan.frame_seconds
+        part = plan.part(frames, scan.rows)
+        found = track_notes(H, adapted.pitches, times, settings=settings, polyphonic=plan.preset.polyphonic,
+                            part=part, novelty=novelty if settings.use_novelty else None, reference=peak)
+        lo = (core_start - 0.5) * plan.frame_seconds if b > 0 else -np.inf
+        hi = (core_stop - 0.5) * plan.frame_seconds if b + 1 < len(plan.layout) else np.inf
+        owned = [n for n in found if lo <= n.onset - settings.tracking.onset_shift < hi]
+        notes += owned
+        if part is not None:
+            # the faint notes starting in this core, and the restrikes inside the notes it owns
+            tracked = faint_evidence(H, adapted.pitches, times, part.starts, instrument=plan.preset, reference=peak)
+            faint += [n for n in tracked if lo <= n.onset < hi]
+            if plan.preset.decaying and novelty is not None:
+                faint += restrikes(novelty, adapted.pitches, times, owned)
+    return sort_notes(notes), (None if plan.reference is None else tuple(sort_notes(faint)))
+
+
+def _plan(y, sr, n_frames, folder, block_seconds, overlap_seconds, adapt_seconds, **shared) -> _Plan:
+    """Block layout on the frame grid and the stride of the even sample of frames."""
+    context = int(round(overlap_seconds * sr / HOP_LENGTH))
+    layout = block_layout(n_frames, max(int(round(block_seconds * sr / HOP_LENGTH)), 1), context)
+    stride = max(int(np.ceil(n_frames / max(int(round(adapt_seconds * sr / HOP_LENGTH)), 1))), 1)
+    return _Plan(y=y, sr=sr, layout=layout, folder=folder, stride=stride, context=context, **shared)
+
+
+def _prepare(y: np.ndarray, sr: int, reference, alignment, instrument, dictionary, settings, say):
+    """Checked take, preset, settings, alignment and template pitches."""
+    y = np.asarray(y)
+    if y.ndim != 1:
+        raise InputError(f"y must be mono (1-D), got shape {y.shape}")
+    if y.dtype != np.float32:
+        y = y.astype(np.float32)
+    if instrument is None:
+        program = getattr(reference, "midi_program", None)
+        instrument = program if program is not None else "piano"
+    preset = resolve_instrument(instrument)
+    settings = settings or settings_for(preset)
+    pitches = None
+    if reference is not None:
+        if alignment is None:
+            from ..alignment.align import align_reference
+
+            say("aligning the part with the take")
+            alignment = align_reference(y, sr, reference)
+        # the preset's (or the dictionary's) pitches and the part's
+        pitches = prior_pitches(reference, preset.pitches if dictionary is None else dictionary.pitches)
+    return y, preset, settings, alignment, pitches
 
 
 def transcribe_long(
@@ -127,36 +356,29 @@ def transcribe_long(
     instrument: "str | int | Instrument | None" = None,
     dictionary: Dictionary | None = None,
     settings: TranscriptionSettings | None = None,
-    mask_penalty: float = INFORMED_DEFAULTS["mask_penalty"],
+    prior: ScorePrior = SCORE_PRIOR,
     progress: Callable[[str], None] | None = None,
 ) -> Transcription:
     """Transcribe a take of any length in overlapping blocks (see the module docstring).
 
     Parameters
     ----------
-    y : np.ndarray (n_samples,)
-        Mono signal at ``sr``.
-    sr : int
-    block_seconds : float
-        Length of each block's core (the notes it owns).
-    overlap_seconds : float
-        Context on each side of a core (at least 2 s).
+    y, sr : the mono take and its sample rate.
+    block_seconds, overlap_seconds : float
+        Length of each block's core (the notes it owns) and the context on each side (>= 2 s).
     adapt_seconds : float
         Frames (in seconds' worth) sampled evenly over the take for the one adaptation.
-    reference : takescribe.score.Reference, optional
-        The part: score-informed mode (mask and dual threshold of :mod:`takescribe.informed`).
-    alignment : takescribe.align.Alignment, optional
-        Take ↔ part map; computed with :func:`takescribe.align.align_reference` when not given.
-    instrument, dictionary, settings :
-        As in :func:`takescribe.transcription.transcribe`.
-    mask_penalty : float
-        Weight of the score prior (informed mode only).
-    progress : callable, optional
+    reference, alignment : optional
+        The part and its alignment with the take (computed when not given): score-informed
+        mode, with the prior of one-pass transcription (``prior``).
+    instrument, dictionary, settings, progress :
+        As in :func:`takescribe.transcription.blind.transcribe`.
 
     Returns
     -------
     Transcription
-        ``spectrogram``, ``H`` and ``H_initial`` are ``None``.
+        ``spectrogram``, ``H`` and ``H_initial`` are None; with a part, ``faint`` holds the
+        "to check by ear" notes.
 
     Examples
     --------
@@ -169,202 +391,35 @@ def transcribe_long(
     """
     say = progress or (lambda message: None)
     validate_block_options(block_seconds, overlap_seconds, adapt_seconds)
-    y = np.asarray(y)
-    if y.ndim != 1:
-        raise InputError(f"y must be mono (1-D), got shape {y.shape}")
-    if y.dtype != np.float32:
-        y = y.astype(np.float32)
-    if instrument is None:
-        program = getattr(reference, "midi_program", None)
-        instrument = program if program is not None else "piano"
-    preset = resolve_instrument(instrument)
-    settings = settings or settings_for(preset)
-    # harmonic ghosts: the blind setting, or the informed one (notes the part starts are exempt)
-    ghost_ratio = settings.ghost_ratio if reference is None else INFORMED_DEFAULTS["ghost_ratio"]
+    y, preset, settings, alignment, pitches = _prepare(y, sr, reference, alignment, instrument, dictionary,
+                                                       settings, say)
     timings = {"spectrogram": 0.0, "factorization": 0.0, "tracking": 0.0}
-    hop = HOP_LENGTH
-    n_frames = 1 + len(y) // hop
-    core = max(int(round(block_seconds * sr / hop)), 1)
-    context = int(round(overlap_seconds * sr / hop))
-    layout = block_layout(n_frames, core, context)
-    timings["n_blocks"] = len(layout)
+    n_frames = 1 + len(y) // HOP_LENGTH
     t0 = time.perf_counter()
     tuning = estimate_tuning(y, sr)
     release_samples(y, 0, 60 * sr)
     timings["spectrogram"] += time.perf_counter() - t0
-
-    if reference is not None and alignment is None:
-        from ..alignment.align import align_reference
-
-        say("aligning the part with the take")
-        alignment = align_reference(y, sr, reference)
-    # pitches of the templates: the preset's (or the dictionary's) and, informed, the part's too
-    pitches = None
-    if reference is not None:
-        base_pitches = preset.pitches if dictionary is None else dictionary.pitches
-        part = np.array(sorted({int(n.pitch) for n in reference.notes}), dtype=int)
-        pitches = np.union1d(base_pitches, part[(part >= 21) & (part <= 108)])
-
-    def prior(block_times: np.ndarray, rows: np.ndarray):
-        """Mask and onset thresholds of the part for these frames (informed mode), as in
-        :func:`takescribe.informed.informed_transcription`."""
-        if reference is None:
-            return None, settings.onset_threshold
-        mask = score_mask(reference, alignment, pitches, block_times, tolerance=INFORMED_DEFAULTS["tolerance"],
-                          floor=INFORMED_DEFAULTS["floor"])[rows]
-        thresholds = np.where(mask >= 1.0, settings.onset_threshold * INFORMED_DEFAULTS["expected_factor"],
-                              settings.onset_threshold * INFORMED_DEFAULTS["unexpected_factor"])
-        return mask, thresholds
-
-    def expected(block_times: np.ndarray, rows: np.ndarray, **kind) -> np.ndarray | None:
-        """Where the part starts a pitch (``onsets_only``) or repeats one (``repeats_only``)."""
-        if reference is None:
-            return None
-        return score_mask(reference, alignment, pitches, block_times, tolerance=INFORMED_DEFAULTS["tolerance"],
-                          floor=0.0, **kind)[rows] >= 1.0
-
     # spectrograms of pass 1 are kept on disk for pass 2; activations likewise (memory stays flat)
     with tempfile.TemporaryDirectory(prefix="takescribe-blocks-") as folder:
-        # pass 1: the normalisation scale, the templates and an even sample of frames for the adaptation
-        say(f"long take: {len(layout)} blocks of {block_seconds:g} s; first pass (scale, adaptation sample)")
-        n_sample = max(int(round(adapt_seconds * sr / hop)), 1)
-        stride = max(int(np.ceil(n_frames / n_sample)), 1)
-        total = v_peak = 0.0
-        initial = None
-        samples, sample_masks = [], []
-        for b, (start, core_start, core_stop, stop) in enumerate(layout):
-            t0 = time.perf_counter()
-            spec, V = _block_spectrogram(y, sr, start, stop, tuning, hop)
-            release_samples(y, start * hop, stop * hop)  # a take spilled to a file leaves memory again
-            timings["spectrogram"] += time.perf_counter() - t0
-            if initial is None:
-                if dictionary is None:
-                    initial = harmonic_dictionary(spec, instrument=preset, pitches=pitches)
-                else:
-                    initial = validate_dictionary(dictionary.retuned(spec.frequencies), spec)
-                rows = np.searchsorted(pitches, initial.pitches) if pitches is not None else None
-                frame_seconds = hop / sr
-            Vc = V[:, core_start - start: core_stop - start]
-            total += float(Vc.sum(dtype=np.float64))
-            v_peak = max(v_peak, float(Vc.max(initial=0.0)))
-            np.save(Path(folder) / f"V{b}.npy", V)
-            picked = np.arange(core_start + (-core_start) % stride, core_stop, stride)
-            samples.append(V[:, picked - start])
-            if reference is not None:
-                mask, _ = prior(picked * frame_seconds, rows)
-                sample_masks.append(mask)
-        scale = total / max(n_frames, 1)
-        K = initial.n_pitches
-        n_noise = settings.noise_templates
-        noise = noise_templates(initial.W.shape[0], n_noise)
+        plan = _plan(y, sr, n_frames, Path(folder), block_seconds, overlap_seconds, adapt_seconds, preset=preset,
+                     settings=settings, tuning=tuning, reference=reference, alignment=alignment, pitches=pitches,
+                     prior=prior)
+        timings["n_blocks"] = len(plan.layout)
+        say(f"long take: {len(plan.layout)} blocks of {block_seconds:g} s; first pass (scale, adaptation sample)")
+        scan = _first_pass(plan, dictionary, timings)
+        scale = scan.total / max(n_frames, 1)
         if scale <= 0:
             warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
-            return Transcription([], None, initial, initial, None, None, preset, timings)
+            return Transcription([], None, scan.initial, scan.initial, None, None, preset, timings)
         inv_scale = np.float32(1.0 / scale)
-        common = dict(beta=settings.beta, n_iter=settings.n_iter, tol=0.0, check_every=max(settings.n_iter, 1),
-                      continuity=settings.continuity, sparsity=settings.sparsity,
-                      mask_penalty=mask_penalty if reference is not None else 0.0)
-
-        def noise_rows(mask):
-            if mask is None or not n_noise:
-                return mask
-            return np.vstack([mask, np.ones((n_noise, mask.shape[1]), mask.dtype)])
-
         t0 = time.perf_counter()
-        W0 = np.hstack([initial.W, noise]).astype(np.float32)
-        colsum0 = float(W0.sum(axis=0).mean())
-        adapted = initial
-        if settings.adapt:
-            say("adapting templates on frames sampled over the whole take")
-            Vs = np.hstack(samples) * inv_scale
-            ms = noise_rows(np.hstack(sample_masks)) if sample_masks else None
-            first = decompose(Vs, W0, H_init=_frame_start(Vs, colsum0, K + n_noise), mask=ms, **common)
-            V_pitched = np.maximum(Vs - noise @ first.H[K:], 0.0).astype(np.float32)
-            adapted = adapt_dictionary(V_pitched, initial, first.H[:K], n_iter=settings.adapt_iter,
-                                       beta=settings.beta, min_activation=0.01)
-        del samples, sample_masks
-        W1 = np.hstack([adapted.W, noise]).astype(np.float32)
+        adapted, W0, W1 = _adapt(plan, scan, inv_scale, say)
+        scan.samples.clear()
+        scan.sample_masks.clear()
         timings["factorization"] += time.perf_counter() - t0
-
-        # pass 2: factorize each block, keep the core activations (and onset novelty) on disk
-        peak = 0.0
-        novelty_sample = []
-        for b, (start, core_start, core_stop, stop) in enumerate(layout):
-            say(f"block {b + 1}/{len(layout)}: factorization")
-            t0 = time.perf_counter()
-            V = np.load(Path(folder) / f"V{b}.npy")
-            V *= inv_scale
-            timings["spectrogram"] += time.perf_counter() - t0
-            t0 = time.perf_counter()
-            mask, _ = prior(np.arange(start, stop) * frame_seconds, rows)
-            mask = noise_rows(mask)
-            H = decompose(V, W0, H_init=_frame_start(V, colsum0, K + n_noise), mask=mask, **common).H
-            if settings.adapt:
-                H = decompose(V, W1, H_init=H, mask=mask, **common).H
-            Hc = np.ascontiguousarray(H[:K, core_start - start: core_stop - start])
-            peak = max(peak, float(Hc.max(initial=0.0)))
-            np.save(Path(folder) / f"{b}.npy", Hc)
-            if settings.use_novelty:
-                N = _novelty(V, adapted.W, v_peak * inv_scale)[:, core_start - start: core_stop - start]
-                np.save(Path(folder) / f"N{b}.npy", np.ascontiguousarray(N))
-                picked = np.arange(core_start + (-core_start) % stride, core_stop, stride)
-                novelty_sample.append(N[:, picked - core_start])
-            timings["factorization"] += time.perf_counter() - t0
-
-        # tracking: each block owns the notes whose onset lies in its core
+        peak, novelty_scale = _second_pass(plan, scan, adapted, W0, W1, inv_scale, timings, say)
         say("note tracking")
         t0 = time.perf_counter()
-        novelty_scale = 0.0
-        if novelty_sample:
-            novelty_scale = float(np.percentile(np.hstack(novelty_sample), 99.5))
-        notes: list[Note] = []
-
-        def around(prefix: str, b: int) -> tuple[np.ndarray, int]:
-            """Block b's core with the end of the previous core and all of the next one."""
-            parts = [np.load(Path(folder) / f"{prefix}{b}.npy")]
-            first_frame = layout[b][1]
-            if b > 0 and context:
-                left = np.load(Path(folder) / f"{prefix}{b - 1}.npy")[:, -context:]
-                parts.insert(0, left)
-                first_frame -= left.shape[1]
-            if b + 1 < len(layout):
-                parts.append(np.load(Path(folder) / f"{prefix}{b + 1}.npy"))
-            return np.hstack(parts), first_frame
-
-        for b, (start, core_start, core_stop, stop) in enumerate(layout):
-            if peak <= 0:
-                break
-            H, first_frame = around("", b)
-            novelty = None
-            if settings.use_novelty:
-                novelty, _ = around("N", b)
-                if novelty_scale > 0:
-                    novelty /= np.float32(novelty_scale)
-            times = np.arange(first_frame, first_frame + H.shape[1]) * frame_seconds
-            _, thresholds = prior(times, rows)
-            starts = expected(times, rows, onsets_only=True)
-            repeats = expected(times, rows, repeats_only=True)
-            found = activations_to_notes(
-                H, adapted.pitches, times, onset_threshold=thresholds,
-                offset_threshold=settings.offset_threshold, release_ratio=settings.release_ratio,
-                reonset_rise=settings.reonset_rise, reonset_frames=settings.reonset_frames,
-                min_duration=settings.min_duration,
-                smoothing=settings.smoothing, polyphonic=preset.polyphonic, reference=peak,
-                onset_shift=settings.onset_shift, attack_fraction=settings.attack_fraction,
-                reonset_dip=settings.reonset_dip, local_window=settings.local_window,
-                local_floor=settings.local_floor, novelty=novelty, novelty_threshold=settings.novelty_threshold,
-                novelty_snap=settings.novelty_snap,
-                # the part's onsets and repeats, as in takescribe.transcription.transcribe
-                expected_onsets=starts if preset.polyphonic else None,
-                expected_repeats=None if preset.polyphonic else repeats,
-                attack_zones=None if preset.polyphonic else starts,
-                zone_snap=settings.zone_snap, repeat_window=settings.repeat_window, max_rise=settings.max_rise,
-                valley_dip=settings.valley_dip, repeat_dip=settings.repeat_dip, notch_width=settings.notch_width, min_fall=settings.min_fall,
-                stage_window=settings.stage_window,
-            )
-            found = suppress_harmonic_ghosts(found, ratio=ghost_ratio, exempt=onset_exemption(starts, adapted.pitches, times))
-            lo = (core_start - 0.5) * frame_seconds if b > 0 else -np.inf
-            hi = (core_stop - 0.5) * frame_seconds if b + 1 < len(layout) else np.inf
-            notes.extend(n for n in found if lo <= n.onset - settings.onset_shift < hi)
+        notes, faint = _track_blocks(plan, scan, adapted, peak, novelty_scale)
         timings["tracking"] += time.perf_counter() - t0
-    return Transcription(sort_notes(notes), None, adapted, initial, None, None, preset, timings)
+    return Transcription(notes, None, adapted, scan.initial, None, None, preset, timings, faint)

@@ -20,9 +20,18 @@ Conventions
   β-divergence alone (Lee and Seung 2001 for β ∈ {1, 2}; Févotte and Idier 2011
   for 1 ≤ β ≤ 2) and carries no such proof with the penalties.
 - With W fixed, the products W·H and Wᵀ·X skip the zeros of a banded W (harmonic
-  templates) by running one BLAS product per dense tile of W (see ``_plan_tiling``).
-  Only exact zeros are skipped: results are the dense ones up to the order of float
-  additions. Other dictionaries (learned, random) keep the dense products.
+  templates) by running one BLAS product per dense tile of W
+  (:mod:`takescribe.transcription.banded`). Only exact zeros are skipped: results are the
+  dense ones up to the order of float additions. Other dictionaries (learned, random) keep
+  the dense products.
+- Speed: all work is in V's dtype (float32 for spectrograms) on buffers allocated once; each
+  iteration is two BLAS products (W H and Wᵀ(V / WH) for KL) plus a few element-wise passes,
+  and a cost check reuses the product the next update needs. BLAS runs on one thread
+  (``_blas_single_thread``); with W fixed and no continuity or sparsity penalty the frames
+  are independent, so the columns are split into slabs of at least ``MIN_FRAMES_PER_THREAD``
+  frames, one Python thread each, up to the process's BLAS thread budget (the result is that
+  of one thread). Pruning small activations does not pay with these dictionaries
+  (``tests/benchmarks/prune_study.py``).
 - Convergence: the relative decrease of the cost, checked every ``check_every``
   iterations, below ``tol``. Costs are evaluated in V's dtype and summed in float64
   (:func:`beta_divergence`, in float64 throughout, is the reference the tests use).
@@ -39,7 +48,6 @@ the β-divergence. Neural Computation 23(9), 2421–2456.
 from __future__ import annotations
 
 import contextlib
-import hashlib
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
@@ -48,6 +56,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
+from .banded import (  # noqa: F401  (the tests and benchmarks reach the planner through this module)
+    MIN_TILED_SAVING,
+    _accumulator,
+    _adjoint_product,
+    _model_product,
+    _plan_tiling,
+)
 
 __all__ = ["Factorization", "decompose", "beta_divergence", "penalty_costs", "validate_factorization_inputs"]
 
@@ -267,199 +282,6 @@ def _update_H(V, W, W_colsum, WtV, H, Lam, work, num, den, *, beta, mask_term, e
 
 # ----------------------------------------------------------------------------- banded products
 
-#: Per-call cost of one BLAS product and the one-thread float32 rate it is traded against
-#: (OpenBLAS on the development machine: ~3 µs per call, ~45·10⁹ multiply-adds per second).
-#: Only their ratio matters, and only roughly: it keeps tiles from getting so small that
-#: call overheads eat what they save.
-_CALL_SECONDS = 3e-6
-_MADDS_PER_SECOND = 45e9
-#: A tile is charged these many rows and columns beyond its shape: BLAS runs products with
-#: few output rows or a short inner dimension below its peak rate (measured, one thread,
-#: 1446 frames: 4-8 output rows × 190 at 40-65 % of the rate of 40 × 60; 40 × 3 at ~55 %).
-_SHORT_ROWS = 6
-_NARROW_COLUMNS = 3
-#: Multiply-add equivalents per element of adding a partial product into its block.
-_ACCUMULATE_COST = 4
-#: The tiling must save at least this fraction of the dense multiply-adds (and some modelled
-#: time), else the products stay dense.
-MIN_TILED_SAVING = 0.25
-#: Candidate block boundaries per axis (the planner's work grows with their square).
-_MAX_BOUNDARIES = 12
-#: Tallest block of the tiling.
-_MAX_BLOCK_ROWS = 64
-
-
-@dataclass(frozen=True)
-class _Tiling:
-    """Dense tiles covering the non-zero entries of a fixed dictionary W.
-
-    ``model`` serves ``W @ X`` and ``adjoint`` serves ``W.T @ X``. Each is a tuple of
-    output blocks ``(i0, i1, tiles)``: rows ``i0:i1`` of the product are the sum over
-    ``tiles`` of ``A @ X[j0:j1]`` with ``A`` a contiguous copy of the block of W (or Wᵀ)
-    at rows ``i0:i1``, columns ``j0:j1``. Every non-zero of W lies in exactly one tile of
-    each, so the products equal the dense ones up to the order of float additions.
-    """
-
-    model: tuple
-    adjoint: tuple
-    accumulator_rows: int
-    madds_per_frame: int
-    dense_madds_per_frame: int
-
-
-def _runs(support: np.ndarray, rows: int, call_cost: float) -> tuple[list[tuple[int, int]], float]:
-    """Contiguous column runs covering ``support``, merged where a gap costs less than a tile; their cost."""
-    edges = np.flatnonzero(np.diff(np.concatenate(([0], support.astype(np.int8), [0]))))
-    tall = rows + _SHORT_ROWS
-    merged: list[list[int]] = []
-    for start, stop in zip(edges[::2].tolist(), edges[1::2].tolist()):
-        if merged and (start - merged[-1][1]) * tall < call_cost + _NARROW_COLUMNS * tall + _ACCUMULATE_COST * rows:
-            merged[-1][1] = stop
-        else:
-            merged.append([start, stop])
-    if not merged:
-        return [], float(rows)  # a block of zeros: one fill
-    cost = sum(tall * (stop - start + _NARROW_COLUMNS) + call_cost for start, stop in merged)
-    cost += _ACCUMULATE_COST * rows * (len(merged) - 1)
-    return [(start, stop) for start, stop in merged], cost
-
-
-def _plan_blocks(nonzero: np.ndarray, call_cost: float) -> tuple[list, float]:
-    """Row blocks of ``nonzero`` (M, N) and their column runs minimising the modelled cost.
-
-    Dynamic programming over block boundaries on a regular grid of at most
-    ``_MAX_BOUNDARIES`` candidates; the cost of a block of m rows is, per run of width w,
-    ``(m + _SHORT_ROWS)·(w + _NARROW_COLUMNS) + call_cost``, plus ``_ACCUMULATE_COST·m``
-    per run after the first (its partial product is added into the block).
-    """
-    M, N = nonzero.shape
-    counts = np.zeros((M + 1, N), np.int32)
-    np.cumsum(nonzero, axis=0, out=counts[1:])
-    step = max(1, -(-M // _MAX_BOUNDARIES))
-    bounds = list(range(0, M, step)) + [M]
-    best = [0.0] + [np.inf] * (len(bounds) - 1)
-    choice: list = [None] * len(bounds)
-    for j in range(1, len(bounds)):
-        for i in range(j - 1, -1, -1):
-            rows = bounds[j] - bounds[i]
-            if rows > _MAX_BLOCK_ROWS and i < j - 1:
-                break
-            runs, cost = _runs(counts[bounds[j]] > counts[bounds[i]], rows, call_cost)
-            if best[i] + cost < best[j]:
-                best[j], choice[j] = best[i] + cost, (i, runs)
-    blocks, j = [], len(bounds) - 1
-    while j > 0:
-        i, runs = choice[j]
-        blocks.append((bounds[i], bounds[j], runs))
-        j = i
-    return blocks[::-1], best[-1]
-
-
-#: Block plans already made, by (shape, non-zero pattern, frames rounded down to a power of two):
-#: a transcription factorizes with the same dictionary pattern several times (first pass, adapted
-#: templates, blocks of a long take); a plan takes a few milliseconds (~1.5 ms for 298 × 91).
-_PLANS: dict = {}
-_PLANS_LOCK = threading.Lock()
-_MAX_PLANS = 16
-
-
-def _plan_for(nonzero: np.ndarray, n_frames: int):
-    """``(model blocks, adjoint blocks)`` for a pattern, or None when tiling cannot pay; cached."""
-    F, K = nonzero.shape
-    frames = 1 << (int(n_frames).bit_length() - 1)
-    key = (F, K, frames, hashlib.blake2b(np.packbits(nonzero).tobytes(), digest_size=16).digest())
-    with _PLANS_LOCK:
-        if key in _PLANS:
-            return _PLANS[key]
-    call_cost = _CALL_SECONDS * _MADDS_PER_SECOND / frames  # in multiply-adds per frame
-    model, model_cost = _plan_blocks(nonzero, call_cost)
-    adjoint, adjoint_cost = _plan_blocks(nonzero.T, call_cost)
-    dense_cost = (F + _SHORT_ROWS) * (K + _NARROW_COLUMNS) + (K + _SHORT_ROWS) * (F + _NARROW_COLUMNS) + 2 * call_cost
-    madds = _area(model) + _area(adjoint)
-    plan = None
-    if madds <= (1.0 - MIN_TILED_SAVING) * 2 * F * K and model_cost + adjoint_cost < dense_cost:
-        plan = (model, adjoint)
-    with _PLANS_LOCK:
-        if len(_PLANS) >= _MAX_PLANS:
-            _PLANS.pop(next(iter(_PLANS)))
-        _PLANS[key] = plan
-    return plan
-
-
-def _area(blocks) -> int:
-    return sum((i1 - i0) * (j1 - j0) for i0, i1, runs in blocks for j0, j1 in runs)
-
-
-def _plan_tiling(W: np.ndarray, n_frames: int) -> _Tiling | None:
-    """Tiles for the products with a banded dictionary, or None when dense products are as cheap.
-
-    Harmonic templates are zero below their fundamental's lobe and above their last
-    partial's, so each band of frequency rows meets only a range of templates (and the
-    broadband noise templates), and each template only a band of rows. Only exact zeros
-    are skipped: the tiled products are the dense ones summed in another order.
-    ``n_frames`` (the frames each product spans) sets how much a BLAS call's overhead
-    weighs against the multiply-adds it saves. None (dense products) unless the tiles
-    hold at most ``1 − MIN_TILED_SAVING`` of W's entries and the cost model expects
-    them to be faster, e.g. for a learned or random W.
-    """
-    F, K = W.shape
-    if F == 0 or K == 0 or n_frames == 0:
-        return None
-    nonzero = W != 0
-    if np.count_nonzero(nonzero) > (1.0 - MIN_TILED_SAVING) * F * K:
-        return None  # not enough zeros to skip, whatever their layout
-    plan = _plan_for(nonzero, n_frames)
-    if plan is None:
-        return None
-    model, adjoint = plan
-
-    def tiles(blocks, A):
-        return tuple((i0, i1, tuple((j0, j1, np.ascontiguousarray(A[i0:i1, j0:j1])) for j0, j1 in runs))
-                     for i0, i1, runs in blocks)
-
-    accumulator_rows = max([i1 - i0 for i0, i1, runs in model + adjoint if len(runs) > 1], default=0)
-    return _Tiling(model=tiles(model, W), adjoint=tiles(adjoint, W.T), accumulator_rows=accumulator_rows,
-                   madds_per_frame=_area(model) + _area(adjoint), dense_madds_per_frame=2 * F * K)
-
-
-def _tiled_product(blocks: tuple, X: np.ndarray, out: np.ndarray, scratch: np.ndarray | None) -> None:
-    """``out = A @ X`` for the matrix A whose tiles are ``blocks`` (see :class:`_Tiling`)."""
-    for i0, i1, tiles in blocks:
-        target = out[i0:i1]
-        if not tiles:
-            target.fill(0)
-            continue
-        j0, j1, A = tiles[0]
-        np.matmul(A, X[j0:j1], out=target)
-        for j0, j1, A in tiles[1:]:
-            part = scratch[: i1 - i0]
-            np.matmul(A, X[j0:j1], out=part)
-            target += part
-
-
-def _model_product(W, H, out, tiling, scratch) -> None:
-    """``out = W @ H``, tiled when a tiling is given."""
-    if tiling is None:
-        np.matmul(W, H, out=out)
-    else:
-        _tiled_product(tiling.model, H, out, scratch)
-
-
-def _adjoint_product(W, X, out, tiling, scratch) -> None:
-    """``out = W.T @ X``, tiled when a tiling is given."""
-    if tiling is None:
-        np.matmul(W.T, X, out=out)
-    else:
-        _tiled_product(tiling.adjoint, X, out, scratch)
-
-
-def _accumulator(tiling, n_frames, dtype):
-    """The accumulation buffer a tiling needs for ``n_frames`` frames (None if it needs none)."""
-    if tiling is None or tiling.accumulator_rows == 0:
-        return None
-    return np.empty((tiling.accumulator_rows, n_frames), dtype)
-
-
 #: Fewest frames per thread worth a thread of its own (smaller slabs make BLAS less efficient).
 MIN_FRAMES_PER_THREAD = 512
 
@@ -552,6 +374,108 @@ def _decompose_slabs(V, W, H, *, beta, n_iter, tol, check_every, mask_term, eps,
     return outcome["costs"], outcome["it"], outcome["converged"]
 
 
+def _check_options(beta, n_iter, check_every, continuity, sparsity, mask_penalty) -> None:
+    if not 0.0 <= beta <= 2.0:
+        raise InputError(f"beta must be in range 0..2 (2 = Euclidean, 1 = Kullback-Leibler), got {beta}")
+    if n_iter < 0 or check_every < 1:
+        raise InputError("n_iter must be >= 0 and check_every >= 1")
+    if continuity < 0 or sparsity < 0 or mask_penalty < 0:
+        raise InputError("penalty weights must be >= 0")
+
+
+def _start(V: np.ndarray, K: int, *, H_init, seed: int, mask, mask_penalty: float, eps: float):
+    """Initial H (copied from ``H_init`` or seeded noise scaled to V, times the mask) and the mask's cost term."""
+    dtype, T = V.dtype, V.shape[1]
+    if H_init is not None:
+        H = np.array(H_init, dtype=dtype, copy=True, order="C")
+    else:
+        rng = np.random.default_rng(seed)
+        scale = np.sqrt(max(float(V.mean()), eps) / K)
+        H = np.abs(rng.standard_normal((K, T))).astype(dtype) * dtype.type(scale)
+    mask_term = None
+    if mask is not None:
+        mask = np.asarray(mask, dtype=dtype)
+        H *= np.maximum(mask, dtype.type(1e-3))
+        mask_term = (mask_penalty * (1.0 - np.minimum(mask, 1.0))).astype(dtype) if mask_penalty > 0 else None
+    return (np.maximum(H, eps, out=H) if H_init is None else H), mask_term
+
+
+def _update_W(V, W, H, Lam, work, *, beta: float, eps: float) -> None:
+    """One multiplicative update of W (free NMF); ``Lam`` holds W·H on entry and is overwritten."""
+    if beta == 1.0:
+        np.divide(V, Lam, out=Lam)
+        numW = Lam @ H.T
+        denW = H.sum(axis=1)[None, :]
+    else:
+        np.power(Lam, beta - 2.0, out=work)
+        work *= V
+        numW = work @ H.T
+        Lam **= beta - 1.0
+        denW = Lam @ H.T
+    W *= numW / np.maximum(denW, eps)
+
+
+def _decompose_one_thread(V, W, H, *, beta, n_iter, tol, check_every, continuity, sparsity, mask_term, eps, tiling,
+                          update_W):
+    """The update loop on one thread (penalties and W updates allowed). Returns ``(costs, n_iter_run, converged)``."""
+    dtype = V.dtype
+    K, T = H.shape
+    penalized = continuity > 0 or sparsity > 0
+    # buffers, allocated once
+    Lam = np.empty_like(V)       # W H, then V / W H (KL) or a power of W H
+    work = np.empty_like(V)      # cost evaluation and general-β scratch
+    num, den = np.empty((K, T), dtype), np.empty((K, T), dtype)
+    scratch = np.empty((K, T), dtype) if penalized else None
+    accumulator = _accumulator(tiling, T, dtype)
+    floor = np.full((1, T), eps, dtype)  # np.maximum against a row runs ~2x faster than against a scalar
+    v_sum = v_log_v = 0.0
+    if beta == 1:
+        v_sum = float(V.sum(dtype=np.float64))
+        np.maximum(V, np.finfo(dtype).tiny, out=work)
+        np.log(work, out=work)
+        work *= V
+        v_log_v = float(work.sum(dtype=np.float64))
+    WtV = W.T @ V if beta == 2 and not update_W else None
+    W_colsum = W.sum(axis=0)
+
+    def model(out):
+        _model_product(W, H, out, tiling, accumulator)
+        np.maximum(out, floor, out=out)
+        return out
+
+    def cost_of_model(Lam_now):
+        wh_sum = float(np.dot(W_colsum.astype(np.float64), H.sum(axis=1, dtype=np.float64))) if beta == 1 else 0.0
+        cost = _divergence_from_model(V, Lam_now, beta, work=work, v_log_v=v_log_v, v_sum=v_sum, wh_sum=wh_sum)
+        return cost + _penalty_cost(H, continuity, sparsity, mask_term)
+
+    def penalty(den, num):
+        _penalty_gradients(H, continuity, sparsity, den, num, eps, scratch)
+
+    converged, it = False, 0
+    costs = [cost_of_model(model(Lam))]
+    have_model = True  # Lam holds W H for the current H
+    while it < n_iter:
+        if not have_model:
+            model(Lam)
+        have_model = False
+        if it > 0 and it % check_every == 0:
+            # the product this update needs is the model of the current H: its cost is nearly free
+            costs.append(cost_of_model(Lam))
+            previous = costs[-2]
+            if tol > 0 and previous > 0 and (previous - costs[-1]) / previous < tol:
+                converged = True
+                break
+        it += 1
+        _update_H(V, W, W_colsum, WtV, H, Lam, work, num, den, beta=beta, mask_term=mask_term, eps=eps,
+                  penalty=penalty if penalized else None, tiling=tiling, accumulator=accumulator)
+        if update_W:
+            _update_W(V, W, H, model(Lam), work, beta=beta, eps=eps)
+            W_colsum = W.sum(axis=0)
+    if not converged and it > 0:
+        costs.append(cost_of_model(model(Lam)))
+    return costs, it, converged
+
+
 def decompose(
     V: np.ndarray,
     W: np.ndarray,
@@ -579,12 +503,9 @@ def decompose(
         Dictionary; fixed unless ``update_W``.
     beta : float
         β of the β-divergence: 2 Euclidean, 1 Kullback–Leibler, in between allowed (0..2).
-    n_iter : int
-        Maximum number of iterations.
-    tol : float
-        Stop when the relative cost decrease over ``check_every`` iterations is below this.
-    check_every : int
-        Iterations between cost evaluations.
+    n_iter, tol, check_every :
+        At most ``n_iter`` iterations; stop when the relative cost decrease over
+        ``check_every`` iterations is below ``tol``.
     continuity, sparsity : float
         Weights of Virtanen's temporal-continuity and sparseness costs on H.
     mask : np.ndarray (n_pitches, n_frames), optional
@@ -604,41 +525,6 @@ def decompose(
     -------
     Factorization
 
-    Notes
-    -----
-    Speed: all work is in V's dtype (float32 for spectrograms) on buffers allocated
-    once; each iteration is two BLAS products of size n_bins × n_pitches × n_frames
-    (W H and Wᵀ(V / WH) for KL) plus a few element-wise passes. The cost at a check
-    reuses the product W H that the next update needs anyway, so a check adds one
-    logarithm over the matrix (KL) and no product. BLAS runs on one thread (see
-    ``_blas_single_thread``); with W fixed and no continuity or sparsity penalty the
-    frames are independent, so the columns are split into slabs of at least
-    ``MIN_FRAMES_PER_THREAD`` frames, one Python thread each, up to the process's BLAS
-    thread budget (the threads meet only at cost checks; the result is that of one thread).
-
-    With W fixed, the products skip W's zeros when they are laid out in bands, as in
-    harmonic templates (zero below the fundamental and above the last partial): W is
-    cut into a few dense tiles (row blocks × the column range they meet, and the
-    broadband columns apart), chosen once by a cost model of BLAS calls (see
-    ``_plan_tiling``), and each product is one BLAS call per tile into its slice of the
-    output. Only exact zeros are skipped, so the result is the dense one up to the order
-    of float additions. A dictionary with under 25 % zeros (learned, random) keeps the
-    dense products. Measured on a piano take with the piano dictionary (298 bins × 91
-    templates): the tiles hold ~63 % of the dense multiply-adds and the products take
-    ~80 % of the dense time (smaller BLAS calls run at a lower rate).
-
-    Pruning small activations does not pay with these dictionaries (measured with
-    ``tests/benchmarks/prune_study.py``): zeroing, after 10 updates, the pitch rows of H
-    below 10⁻³ of the largest activation of each 128-frame block (final KL cost +0.001
-    to +0.85 %) leaves 63–99 % of the (row, block) pairs in the pipeline's
-    factorizations of eight corpus takes and 94 % in the engine benchmark's, so products
-    on the kept rows would run 71–99 % of the dense multiply-adds, more than the banded
-    tiles; even run over each kept template's own band of bins only, with no cost per
-    call, they would run 47 % on the benchmark (49 % unpruned, 62 % for the tiles). At
-    10⁻² 35–80 % of the pairs are left but the final cost rises by up to 11 % (the pass
-    after template adaptation). Activations of unplayed pitches decay slowly under the
-    updates and differ from frame to frame, so a block's union of active rows stays large.
-
     Examples
     --------
     >>> rng = np.random.default_rng(0)
@@ -648,114 +534,26 @@ def decompose(
     True
     """
     V = np.asarray(V)
-    W = np.asarray(W)
     if not np.issubdtype(V.dtype, np.floating):
         V = V.astype(np.float32)
-    dtype = V.dtype
-    W = W.astype(dtype, copy=True)
+    W = np.asarray(W).astype(V.dtype, copy=True)
     if W_mask is not None:
-        W *= np.asarray(W_mask, dtype=dtype)
+        W *= np.asarray(W_mask, dtype=V.dtype)
     validate_factorization_inputs(V, W, mask=mask, H_init=H_init)
-    if not 0.0 <= beta <= 2.0:
-        raise InputError(f"beta must be in range 0..2 (2 = Euclidean, 1 = Kullback-Leibler), got {beta}")
-    if n_iter < 0 or check_every < 1:
-        raise InputError("n_iter must be >= 0 and check_every >= 1")
-    if continuity < 0 or sparsity < 0 or mask_penalty < 0:
-        raise InputError("penalty weights must be >= 0")
+    _check_options(beta, n_iter, check_every, continuity, sparsity, mask_penalty)
     V = np.ascontiguousarray(V)
-    eps = _eps(dtype)
-    K, T = W.shape[1], V.shape[1]
-    if H_init is not None:
-        H = np.array(H_init, dtype=dtype, copy=True, order="C")
-    else:
-        rng = np.random.default_rng(seed)
-        scale = np.sqrt(max(float(V.mean()), eps) / K)
-        H = np.abs(rng.standard_normal((K, T))).astype(dtype) * dtype.type(scale)
-    if mask is not None:
-        mask = np.asarray(mask, dtype=dtype)
-        H *= np.maximum(mask, dtype.type(1e-3))
-        mask_term = (mask_penalty * (1.0 - np.minimum(mask, 1.0))).astype(dtype) if mask_penalty > 0 else None
-    else:
-        mask_term = None
-    H = np.maximum(H, eps, out=H) if H_init is None else H
-
-    penalized = continuity > 0 or sparsity > 0
-    threads = 1 if (penalized or update_W) else _engine_threads(T)
+    eps = _eps(V.dtype)
+    H, mask_term = _start(V, W.shape[1], H_init=H_init, seed=seed, mask=mask, mask_penalty=mask_penalty, eps=eps)
+    threads = 1 if (continuity > 0 or sparsity > 0 or update_W) else _engine_threads(V.shape[1])
     # a learned W changes at every update: only a fixed one is worth tiling
-    tiling = None if update_W else _plan_tiling(W, -(-T // threads))
-    if threads > 1:
-        # frames are independent once W is fixed (no continuity penalty): one column slab per thread
-        with _blas_single_thread():
-            costs, it, converged = _decompose_slabs(V, W, H, beta=beta, n_iter=n_iter, tol=tol,
-                                                    check_every=check_every, mask_term=mask_term, eps=eps,
-                                                    threads=threads, tiling=tiling)
-        return Factorization(W=W, H=H, costs=np.asarray(costs), n_iter=it, converged=converged)
-    # buffers, allocated once
-    Lam = np.empty_like(V)       # W H, then V / W H (KL) or a power of W H
-    work = np.empty_like(V)      # cost evaluation and general-β scratch
-    num = np.empty((K, T), dtype)
-    den = np.empty((K, T), dtype)
-    scratch = np.empty((K, T), dtype) if penalized else None
-    accumulator = _accumulator(tiling, T, dtype)
-    floor = np.full((1, T), eps, dtype)  # np.maximum against a row runs ~2x faster than against a scalar
-    if beta == 1:
-        v_sum = float(V.sum(dtype=np.float64))
-        np.maximum(V, np.finfo(dtype).tiny, out=work)
-        np.log(work, out=work)
-        work *= V
-        v_log_v = float(work.sum(dtype=np.float64))
-    else:
-        v_sum = v_log_v = 0.0
-    WtV = W.T @ V if beta == 2 and not update_W else None
-    W_colsum = W.sum(axis=0)
-
-    def model(out):
-        _model_product(W, H, out, tiling, accumulator)
-        np.maximum(out, floor, out=out)
-        return out
-
-    def cost_of_model(Lam_now):
-        wh_sum = float(np.dot(W_colsum.astype(np.float64), H.sum(axis=1, dtype=np.float64))) if beta == 1 else 0.0
-        cost = _divergence_from_model(V, Lam_now, beta, work=work, v_log_v=v_log_v, v_sum=v_sum, wh_sum=wh_sum)
-        return cost + _penalty_cost(H, continuity, sparsity, mask_term)
-
-    def penalty(den, num):
-        _penalty_gradients(H, continuity, sparsity, den, num, eps, scratch)
-
-    penalty = penalty if penalized else None
-    converged = False
-    it = 0
+    tiling = None if update_W else _plan_tiling(W, -(-V.shape[1] // threads))
+    options = dict(beta=beta, n_iter=n_iter, tol=tol, check_every=check_every, mask_term=mask_term, eps=eps,
+                   tiling=tiling)
     with _blas_single_thread():
-        costs = [cost_of_model(model(Lam))]
-        have_model = True  # Lam holds W H for the current H
-        while it < n_iter:
-            if not have_model:
-                model(Lam)
-            have_model = False
-            if it > 0 and it % check_every == 0:
-                # the product this update needs is the model of the current H: its cost is nearly free
-                costs.append(cost_of_model(Lam))
-                previous = costs[-2]
-                if tol > 0 and previous > 0 and (previous - costs[-1]) / previous < tol:
-                    converged = True
-                    break
-            it += 1
-            _update_H(V, W, W_colsum, WtV, H, Lam, work, num, den, beta=beta, mask_term=mask_term, eps=eps,
-                      penalty=penalty, tiling=tiling, accumulator=accumulator)
-            if update_W:
-                model(Lam)
-                if beta == 1.0:
-                    np.divide(V, Lam, out=Lam)
-                    numW = Lam @ H.T
-                    denW = H.sum(axis=1)[None, :]
-                else:
-                    np.power(Lam, beta - 2.0, out=work)
-                    work *= V
-                    numW = work @ H.T
-                    Lam **= beta - 1.0
-                    denW = Lam @ H.T
-                W *= numW / np.maximum(denW, eps)
-                W_colsum = W.sum(axis=0)
-        if not converged and it > 0:
-            costs.append(cost_of_model(model(Lam)))
+        if threads > 1:
+            # frames are independent once W is fixed (no continuity penalty): one column slab per thread
+            costs, it, converged = _decompose_slabs(V, W, H, threads=threads, **options)
+        else:
+            costs, it, converged = _decompose_one_thread(V, W, H, continuity=continuity, sparsity=sparsity,
+                                                         update_W=update_W, **options)
     return Factorization(W=W, H=H, costs=np.asarray(costs), n_iter=it, converged=converged)

@@ -17,26 +17,28 @@ Method
    onset is detected where the activation rises by at least ``reonset_rise`` (a
    fraction of the reference) over ``reonset_frames`` frames after having fallen:
    this splits repeated notes of one pitch. Where the score-informed mode says the
-   part repeats the pitch (``expected_repeats``), a valley between two swells also
+   part repeats the pitch (``part_repeats``), a valley between two swells also
    splits the region: bowed and blown legato repeats rise too slowly for the rise test.
    For melodic instruments a deeper valley (``valley_dip``) splits it anywhere.
 5. A note's onset is placed where its rise crosses ``attack_fraction`` of its
    peak (or at a novelty peak of its pitch just before, or, where the part starts
-   the pitch, inside that zone: ``attack_zones``); it ends where the region ends, at the next onset of the same pitch, or
-   where the activation falls below ``release_ratio`` of the note's own peak,
-   whichever comes first. Notes shorter than ``min_duration`` are dropped, and so are
-   struck or plucked notes without an attack (``max_rise``: slower than that from
-   onset to 80 % of the peak). A melodic note ends at the latest where the next starts.
+   the pitch, inside that zone: ``part_starts``); it ends where the region ends, at the
+   next onset of the same pitch, or where the activation falls below ``release_ratio`` of
+   the note's own peak, whichever comes first. Notes shorter than ``min_duration`` are
+   dropped, and so are struck or plucked notes without an attack (``max_rise``: slower than
+   that from onset to ``attack_reach`` of the peak). A melodic note ends at the latest where
+   the next starts. The splitting steps live in :mod:`takescribe.transcription.onsets`.
 6. Velocity is ``round(127 · sqrt(peak / reference))`` clipped to 1..127: a
    loudness-like compression of the activation peak (our own mapping, no source).
 
-``thresholds`` may be an array (n_pitches, n_frames) of onset thresholds instead of
-one number: score-informed tracking uses it for its dual threshold.
+Every level and window is a field of one :class:`TrackingSettings` value; ``onset_thresholds``
+(n_pitches, n_frames) replaces its onset level for score-informed tracking's dual threshold.
 """
 
 from __future__ import annotations
 
 import dataclasses
+from dataclasses import dataclass
 
 import librosa
 import numpy as np
@@ -44,9 +46,11 @@ import scipy.ndimage
 
 from ..errors import InputError
 from ..notes import Note, sort_notes
+from .onsets import merge_attack_stages, region_onsets
+from .settings import TrackingSettings
 
 __all__ = ["activations_to_notes", "monophonic_activations", "pitch_novelty", "suppress_harmonic_ghosts",
-           "validate_activations"]
+           "validate_activations", "TrackingSettings"]
 
 
 def validate_activations(H: np.ndarray, pitches: np.ndarray, frame_times: np.ndarray) -> None:
@@ -131,157 +135,148 @@ def pitch_novelty(V: np.ndarray, W: np.ndarray, *, compression: float = 100.0, p
     return N / scale if scale > 0 else N
 
 
-def _repeat_valleys(seg: np.ndarray, zone: np.ndarray, rise: np.ndarray, dip: "float | np.ndarray",
-                    width: int, reattack_dip: "float | np.ndarray | None" = None, notch_frames: int = 0) -> list[int]:
-    """Valleys of ``seg`` inside ``zone`` between two swells: the bow change of a repeated note.
 
-    A frame qualifies when it is a local minimum lying in ``zone``, at most ``dip`` times
-    the highest activation within ``width`` frames before it *and* within ``width`` frames
-    after it, and the swell after it rises by at least ``rise``. A shallower valley, down to
-    ``reattack_dip`` only, qualifies when the swell after it is at least as high as the one
-    before it (a new stroke or breath comes back at full strength; the slow modulation of a
-    held note sags and comes back lower), or when it is that deep on both sides and at most
-    ``notch_frames`` wide at half its depth (the short gap of a tongued repeat; vibrato and
-    bow-pressure swells are wider). Of valleys closer than
-    ``width`` frames only the deepest is kept. Returns, for each valley, the new note's
-    start: half-way between the frame where the fall into it is half-way down and its floor.
-    """
-    n = len(seg)
-    if n < 3 or width < 1 or not zone[1:-1].any():
-        return []
-    padded = np.concatenate([np.full(width, -np.inf), seg, np.full(width, -np.inf)])
-    windows = np.lib.stride_tricks.sliding_window_view(padded, width)
-    before = windows[:n].max(axis=1)            # seg[i - width: i]
-    after = windows[width + 1: width + 1 + n].max(axis=1)  # seg[i + 1: i + 1 + width]
-    minimum = np.zeros(n, dtype=bool)
-    minimum[1:-1] = (seg[1:-1] < seg[:-2]) & (seg[1:-1] <= seg[2:])
-    ok = minimum & zone & (seg <= dip * before) & (seg <= dip * after) & (after - seg >= rise)
-    if reattack_dip is not None:
-        with np.errstate(invalid="ignore"):  # 0 (outside the repeats) times -inf (at an edge): False
-            deep_before, deep_after = seg <= reattack_dip * before, seg <= reattack_dip * after
-        shallow = minimum & zone & deep_before & (after - seg >= rise) & ~ok
-        # the swell after it comes back at full strength ...
-        ok |= shallow & (after >= before)
-        # ... or the valley is that deep on both sides, and narrow: the short gap of a tongued repeat
-        for c in np.nonzero(shallow & deep_after & ~ok)[0] if notch_frames > 0 else ():
-            left_level, right_level = 0.5 * (seg[c] + before[c]), 0.5 * (seg[c] + after[c])
-            left = right = 0
-            while c - left - 1 >= 0 and seg[c - left - 1] < left_level:
-                left += 1
-            while c + right + 1 < n and seg[c + right + 1] < right_level:
-                right += 1
-            ok[c] = left + right + 1 <= notch_frames
-    valleys: list[int] = []
-    for c in np.nonzero(ok)[0]:
-        if valleys and c - valleys[-1] < width:
-            if seg[c] < seg[valleys[-1]]:
-                valleys[-1] = int(c)
-            continue
-        valleys.append(int(c))
-    # the new note starts between the old one's fading and the valley's floor: a bowed
-    # stroke builds up while the old one fades (its start lies early in the fall), a blown or
-    # tongued repeat starts at the floor after a short gap. Place it half-way between the
-    # frame where the fall is half-way down from the swell before and the floor (on the
-    # tuning split: the floor alone put slow bow changes 60 ms late, the fall alone put
-    # tongued repeats 60 ms early)
-    starts = []
-    for c in valleys:
-        half = 0.5 * (seg[c] + before[c])
-        high = np.nonzero(seg[max(c - width, 0): c] > half)[0]
-        fall = max(c - width, 0) + int(high[-1]) + 1 if len(high) else c
-        starts.append((fall + c + 1) // 2)
-    return starts
+@dataclass(frozen=True)
+class _Frames:
+    """What every pitch's tracking shares: the settings, the frame grid and the part's hints."""
+
+    settings: TrackingSettings
+    times: np.ndarray
+    hop: float
+    end_time: float
+    thresholds: np.ndarray
+    rise: np.ndarray
+    snap_frames: int
+    repeat_frames: int
+    notch_frames: int
+    polyphonic: bool
+    novelty: np.ndarray | None
+    relaxed: np.ndarray | None
+    repeats: np.ndarray | None
+    attack_zones: np.ndarray | None
 
 
-def _split_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
-                  novelty: np.ndarray | None = None, novelty_threshold: float = 1.0,
-                  relaxed: np.ndarray | None = None, repeats: np.ndarray | None = None,
-                  repeat_frames: int = 0, valley_dip: float | None = None,
-                  repeat_dip: float | None = None, min_fall: float | None = None,
-                  notch_frames: int = 0) -> tuple[list[int], set[int]]:
-    """Onset frames inside region [start, stop) of one pitch's activation ``a``.
-
-    Also returns the onsets found at repeat valleys: their time is already placed.
-    """
-    if stop - start <= 2 * frames:
-        return [start], set()
-    onsets = _rise_onsets(a, start, stop, rise, frames, dip, novelty, novelty_threshold, relaxed, min_fall)
-    if (repeats is None and valley_dip is None) or repeat_frames < 1:
-        return onsets, set()
-    # where the part repeats this pitch, a swell-valley-swell is a new bow stroke or breath
-    # even when the rise after it is too slow for the rise test above; elsewhere (and
-    # without a part) only a deeper valley, down to ``valley_dip``, counts
-    reattack = None
-    if valley_dip is None:
-        zone, depth = repeats[start:stop], dip
+def _normalised(H: np.ndarray, s: TrackingSettings, reference: float | None, hop: float, polyphonic: bool):
+    """``(Hn, Hl, Hsel)``: H over the reference level, smoothed; over the local level; decoded (melodic)."""
+    ref = float(H.max()) if reference is None else float(reference)
+    if ref <= 0:
+        return None
+    Hn = H.astype(np.float64) / ref
+    if s.smoothing > 1:
+        Hn = scipy.ndimage.median_filter(Hn, size=(1, int(s.smoothing)), mode="nearest")
+    # local reference: the loudest activation within +-local_window seconds, floored
+    if s.local_window > 0:
+        width = max(int(round(2 * s.local_window / hop)) | 1, 1)
+        local = scipy.ndimage.maximum_filter1d(Hn.max(axis=0), size=width, mode="nearest")
+        local = np.maximum(local, s.local_floor)
     else:
-        zone = np.ones(stop - start, dtype=bool)
-        depth = np.full(stop - start, valley_dip) if repeats is None else np.where(repeats[start:stop], dip, valley_dip)
-    if repeat_dip is not None and repeats is not None:
-        # where the part repeats the pitch, a shallower valley that the next swell climbs out
-        # of at full strength, or a narrow one, is a re-attack too
-        reattack = np.where(repeats[start:stop], repeat_dip, 0.0)
-    extra = [start + v for v in _repeat_valleys(a[start:stop], zone, rise[start:stop], depth, repeat_frames,
-                                                reattack, notch_frames)]
-    extra = [v for v in extra if v - start >= 2 * frames
-             and not any(-2 * frames <= o - v <= repeat_frames for o in onsets)]
-    return sorted(onsets + extra), set(extra)
+        local = np.ones(H.shape[1])
+    Hl = Hn / local[None, :]  # locally normalised activations, at most 1
+    if polyphonic:
+        return Hn, Hl, Hl
+    return Hn, Hl, monophonic_activations(Hl, silence_level=s.silence_factor * s.offset_threshold,
+                                          stay_probability=s.stay_probability)
 
 
-def _merge_attack_stages(a: np.ndarray, onsets: list[int], placed: set[int], stop: int, frame_times: np.ndarray,
-                         window: float, ratio: float) -> list[int]:
-    """Drop a rise onset that follows the previous onset within ``window`` seconds when the
-    swell before it peaked below ``ratio`` times its own peak: that swell was the first stage
-    of one attack (bow or breath noise, then the tone), not a note of its own."""
-    kept = onsets[:1]
-    for j, o in enumerate(onsets[1:], start=1):
-        following = onsets[j + 1] if j + 1 < len(onsets) else stop
-        if (o not in placed and frame_times[o] - frame_times[kept[-1]] < window
-                and a[kept[-1]:o].max() < ratio * a[o:following].max()):
+def _frames(H, frame_times, s, *, polyphonic, onset_thresholds, novelty, part_starts, part_repeats) -> _Frames:
+    """The shared per-call values (and a check of the hint arrays' shapes)."""
+    T = H.shape[1]
+    hop = float(np.median(np.diff(frame_times))) if T > 1 else 0.01
+    for name, zones in (("part_starts", part_starts), ("part_repeats", part_repeats)):
+        if zones is not None and np.shape(zones) != H.shape:
+            raise InputError(f"{name} must have the shape of H {H.shape}, got {np.shape(zones)}")
+    level = s.onset_threshold if onset_thresholds is None else onset_thresholds
+    return _Frames(
+        settings=s, times=frame_times, hop=hop, end_time=frame_times[-1] + hop,
+        thresholds=np.broadcast_to(np.asarray(level, dtype=float), H.shape), rise=np.full(T, s.reonset_rise),
+        snap_frames=max(int(round(s.snap_window / hop)), 1), repeat_frames=max(int(round(s.repeat_window / hop)), 1),
+        notch_frames=int(round(s.notch_width / hop)) if s.notch_width > 0 else 0, polyphonic=polyphonic,
+        novelty=novelty,
+        # relaxed re-onsets serve repeated chords of struck instruments; on bowed and blown notes
+        # a slow attack would look like several onsets
+        relaxed=part_starts if polyphonic else None,
+        # and conversely: a struck note decays, so a valley before a repeated strike is no second
+        # onset, while a bowed or blown repeat may rise too slowly for the rise test
+        repeats=None if polyphonic else part_repeats,
+        attack_zones=None if polyphonic else part_starts)
+
+
+def _attack_frame(k: int, on: int, peak_i: int, peak: float, first: int, full: np.ndarray, placed: bool,
+                  ctx: _Frames) -> int:
+    """Frame where a note that starts rising at ``on`` (and peaks ``peak_i`` later) begins."""
+    s = ctx.settings
+    # where the rise towards the peak crosses `attack_fraction` of it, looked for on the
+    # undecoded activation from `first` (melodic decoding may hide the start of the rise)
+    rising = full[first: on + peak_i + 1]
+    below = np.nonzero(rising < s.attack_fraction * peak)[0]
+    onset_frame = first + (int(below[-1]) + 1 if len(below) else 0)
+    if placed:
+        return on  # a repeat valley: the onset is where the old stroke fades
+    if ctx.novelty is None:
+        return onset_frame
+    # snap to the strongest attack of this pitch shortly before or at the rise
+    lo = max(onset_frame - ctx.snap_frames, first)
+    window = ctx.novelty[k, lo: onset_frame + 2]
+    if len(window) and window.max() >= s.novelty_snap:
+        return lo + int(np.argmax(window))
+    if ctx.attack_zones is not None:
+        # where the part starts this pitch, a slow swell may cross the attack level long after
+        # its start: a weaker attack of its partials inside the zone and before the rise marks it
+        window = ctx.novelty[k, first: onset_frame + 2] * ctx.attack_zones[k, first: onset_frame + 2]
+        if len(window) and window.max() >= s.zone_snap:
+            return first + int(np.argmax(window))
+    return onset_frame
+
+
+def _region_notes(k: int, pitch: int, a, full, loud, start: int, stop: int, previous_end: int,
+                  ctx: _Frames) -> tuple[list[Note], int]:
+    """The notes of one sounding region of pitch row ``k``; returns them and the last note's end frame."""
+    s = ctx.settings
+    onsets, placed = region_onsets(
+        a, start, stop, ctx.rise, s, novelty=None if ctx.novelty is None else ctx.novelty[k],
+        relaxed=None if ctx.relaxed is None else ctx.relaxed[k],
+        repeats=None if ctx.repeats is None else ctx.repeats[k],
+        repeat_frames=ctx.repeat_frames, melodic=not ctx.polyphonic, notch_frames=ctx.notch_frames)
+    if s.stage_window > 0 and not ctx.polyphonic:
+        onsets = merge_attack_stages(a, onsets, placed, stop, ctx.times, s)
+    notes = []
+    for i, on in enumerate(onsets):
+        part = a[on: onsets[i + 1] if i + 1 < len(onsets) else stop]
+        if len(part) == 0:
             continue
-        kept.append(o)
-    return kept
+        peak_i = int(np.argmax(part))
+        peak = float(part[peak_i])
+        if peak < float(ctx.thresholds[k, on + peak_i]):
+            continue
+        # never look back past the previous note of this pitch
+        first = max(on - (ctx.snap_frames if i == 0 else 0), previous_end)
+        onset_frame = _attack_frame(k, on, peak_i, peak, first, full, on in placed, ctx)
+        if s.max_rise is not None and on not in placed:
+            # a stroke reaches most of its peak at once; a slow swell is no stroke
+            reached = int(np.argmax(part[: peak_i + 1] >= s.attack_reach * peak))
+            if ctx.times[on + reached] - ctx.times[min(onset_frame, on + reached)] > s.max_rise:
+                continue
+        # release: first frame after the peak below release_ratio * peak
+        low = np.nonzero(part[peak_i:] < s.release_ratio * peak)[0]
+        end_frame = on + peak_i + (int(low[0]) if len(low) else len(part) - peak_i)
+        previous_end = end_frame
+        onset = ctx.times[onset_frame] + s.onset_shift
+        offset = (ctx.times[end_frame] if end_frame < len(ctx.times) else ctx.end_time) + s.onset_shift
+        if offset - onset < s.min_duration:
+            continue
+        velocity = int(np.clip(round(127 * np.sqrt(min(float(loud[on + peak_i]), 1.0))), 1, 127))
+        notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), pitch, velocity))
+    return notes, previous_end
 
 
-def _rise_onsets(a: np.ndarray, start: int, stop: int, rise: np.ndarray, frames: int, dip: float,
-                 novelty: np.ndarray | None, novelty_threshold: float, relaxed: np.ndarray | None,
-                 min_fall: float | None = None) -> list[int]:
-    """Region start and the rise-after-dip (and novelty) re-onsets inside it."""
-    onsets = [start]
-    seg = a[start:stop]
-    # minimum over the previous `frames` frames (edge-padded at the region start)
-    padded = np.concatenate([np.full(frames, seg[0]), seg])
-    prev_min = np.lib.stride_tricks.sliding_window_view(padded[:-1], frames).min(axis=1)
-    gain = seg - prev_min
-    rise = rise[start:stop]
-    ok = (gain >= rise) & (prev_min <= dip * seg)
-    if min_fall is not None:
-        # a rise is a new note only after a fall from the level held before it; a note's own
-        # attack in two stages (bow noise, then the string speaking) rises without one
-        held = np.maximum.accumulate(np.concatenate([np.full(frames + 1, -np.inf), seg]))[: len(seg)]
-        ok &= prev_min <= min_fall * held
-    only_relaxed = np.zeros(len(seg), dtype=bool)
-    if relaxed is not None:
-        # where an onset of this pitch is expected, a smaller rise over a shallower dip will do
-        zone = relaxed[start:stop]
-        only_relaxed = zone & (gain >= 0.5 * rise) & (prev_min <= min(1.5 * dip, 0.9) * seg) & ~ok
-        ok |= only_relaxed
-    if novelty is not None:
-        # a clear attack of this pitch's partials starts a note even without a dip
-        nov = novelty[start:stop]
-        peaks = np.zeros(len(seg), dtype=bool)
-        peaks[1:-1] = (nov[1:-1] >= nov[:-2]) & (nov[1:-1] > nov[2:])
-        ok |= peaks & (nov >= novelty_threshold)
-        gain = np.where(peaks & (nov >= novelty_threshold), np.maximum(gain, nov), gain)
-    candidates = np.nonzero(ok[1:-1] & (gain[1:-1] >= gain[:-2]) & (gain[1:-1] > gain[2:]))[0] + 1
-    last = 0
-    for c in candidates:
-        # a relaxed onset must also be well clear of the previous one: the expected-onset zone
-        # around a note's own start would otherwise split its attack
-        if c - last >= (5 if only_relaxed[c] else 2) * frames:
-            onsets.append(start + int(c) - frames // 2)
-            last = c
-    return onsets
+def _one_at_a_time(notes: list[Note], min_duration: float) -> list[Note]:
+    """Melodic drafts: a note ends where the next one starts (an onset placed on the attack of
+    the next note can fall before the decoded end of this one)."""
+    for i in range(len(notes) - 1):
+        nxt = notes[i + 1].onset
+        if notes[i].onset < nxt < notes[i].offset:
+            notes[i] = dataclasses.replace(notes[i], offset=max(nxt, notes[i].onset + min_duration))
+    return notes
 
 
 def activations_to_notes(
@@ -289,135 +284,40 @@ def activations_to_notes(
     pitches: np.ndarray,
     frame_times: np.ndarray,
     *,
-    onset_threshold: "float | np.ndarray" = 0.12,
-    offset_threshold: float = 0.05,
-    release_ratio: float = 0.08,
-    reonset_rise: float = 0.08,
-    reonset_frames: int = 4,
-    min_duration: float = 0.05,
-    smoothing: int = 3,
+    settings: TrackingSettings = TrackingSettings(),
     polyphonic: bool = True,
+    onset_thresholds: np.ndarray | None = None,
     reference: float | None = None,
-    onset_shift: float = 0.0,
-    attack_fraction: float = 0.3,
-    reonset_dip: float = 0.6,
-    local_window: float = 1.5,
-    local_floor: float = 0.1,
     novelty: np.ndarray | None = None,
-    novelty_threshold: float = 0.5,
-    novelty_snap: float = 0.1,
-    expected_onsets: np.ndarray | None = None,
-    expected_repeats: np.ndarray | None = None,
-    repeat_window: float = 0.25,
-    attack_zones: np.ndarray | None = None,
-    zone_snap: float = 0.3,
-    max_rise: float | None = None,
-    valley_dip: float | None = None,
-    repeat_dip: float | None = None,
-    notch_width: float = 0.0,
-    min_fall: float | None = None,
-    stage_window: float = 0.0,
-    stage_ratio: float = 0.6,
+    part_starts: np.ndarray | None = None,
+    part_repeats: np.ndarray | None = None,
 ) -> list[Note]:
-    """Turn activations into note events.
+    """Turn activations into note events (see the module docstring for the method).
 
     Parameters
     ----------
     H : np.ndarray (n_pitches, n_frames)
-        Activations.
     pitches : np.ndarray (n_pitches,)
         MIDI pitch of each row.
     frame_times : np.ndarray (n_frames,)
-        Time in seconds of each frame.
-    onset_threshold : float or np.ndarray (n_pitches, n_frames)
-        Level (fraction of ``reference``) a note must reach.
-    offset_threshold : float
-        Level below which a note ends (hysteresis low threshold).
-    release_ratio : float
-        A note also ends when it falls below this fraction of its own peak.
-    reonset_rise, reonset_frames : float, int
-        Rise (fraction of the reference) within that many frames that starts a new note
-        of the same pitch.
-    min_duration : float
-        Shortest note kept, in seconds.
-    smoothing : int
-        Median filter length in frames (1 = none).
+        Seconds.
+    settings : TrackingSettings
+        Every level and window of the method.
     polyphonic : bool
-        False applies the melodic Viterbi decoding first.
+        False applies the melodic Viterbi decoding first (one note at a time).
+    onset_thresholds : np.ndarray (n_pitches, n_frames), optional
+        Per-pitch, per-frame onset levels replacing ``settings.onset_threshold`` (dual threshold).
     reference : float, optional
-        Normalisation level; defaults to ``H.max()``.
-    onset_shift : float
-        Seconds added to every note time (analysis latency compensation).
-    reonset_dip : float
-        A re-onset also needs the activation to have dipped to at most this fraction
-        of its new value (vibrato and bow changes do not split notes).
-    local_window, local_floor : float
-        Thresholds are relative to the loudest activation within ± ``local_window``
-        seconds (never below ``local_floor`` of the take's loudest), so quiet passages
-        are judged against their surroundings. 0 disables it.
+        Normalisation level; defaults to ``H.max()`` (a block of a long take passes the take's).
     novelty : np.ndarray (n_pitches, n_frames), optional
-        Per-pitch onset novelty (:func:`pitch_novelty`). With it, a novelty peak of at
-        least ``novelty_threshold`` starts a new note inside a region (repeated notes
-        that do not dip), and onsets snap to the strongest novelty peak of at least
-        ``novelty_snap`` within 0.1 s before the rise.
-    novelty_threshold, novelty_snap : float
-    expected_onsets : np.ndarray of bool (n_pitches, n_frames), optional
-        Where a note of the pitch is expected to start (score-informed mode): there a new
-        onset inside a sounding region needs only half the rise over a shallower dip, so
-        repeated chords of a part are split where they are written.
-    expected_repeats : np.ndarray of bool (n_pitches, n_frames), optional
-        Where the part starts a pitch again right after a note of the same pitch
-        (score-informed mode; see :func:`takescribe.informed.score_mask`, ``repeats_only``).
-        There a valley of the activation between two swells also starts a new note: at
-        most ``reonset_dip`` times the highest activation within ``repeat_window`` seconds
-        before it and after it, followed by a rise of at least ``reonset_rise``. A bow
-        change or a breath between two legato notes of one pitch leaves such a valley but
-        rises too slowly for the rise test; a note held through the written repeat leaves
-        none, so it stays one note (the score is a prior, not a cage).
-    repeat_window : float
-        Seconds on each side of a valley searched for the swells around it.
-    valley_dip : float, optional
-        Melodic instruments: anywhere (part or no part), a valley between two swells that
-        falls to at most this fraction of the highest activation within ``repeat_window``
-        on each side starts a new note: a bow change or breath between two notes of the same
-        pitch. Deeper than ``reonset_dip``, which serves where the part expects a repeat.
-        None: only where the part expects a repeat.
-    repeat_dip : float, optional
-        Where ``expected_repeats`` is True, a shallower valley, down to this fraction of the
-        swell before it only, also starts a new note when the swell after it climbs at least
-        as high as the one before: a tongued or re-bowed repeat comes back at full strength,
-        while the slow modulation of a note held through the written repeat comes back
-        lower. None: only the ``reonset_dip`` valleys.
-    notch_width : float
-        Seconds. Where ``expected_repeats`` is True, a valley down to ``repeat_dip`` of the
-        swells on both sides that is at most this wide at half its depth also starts a new
-        note: the short gap of a tongued or re-bowed repeat, narrower than the swells of
-        vibrato (5-7 Hz) or bow pressure in a held note. 0: no such test.
-    min_fall : float, optional
-        A rise inside a sounding region (the rise-after-dip test) starts a new note only
-        when the activation had fallen to at most this fraction of the highest level it held
-        before the rise: a note whose attack comes in two stages (bow or breath noise, then
-        the tone) rises twice without falling in between. None: no such test.
-    stage_window, stage_ratio : float
-        Melodic instruments: a new onset within ``stage_window`` seconds of the previous one
-        is dropped when the swell between them peaked below ``stage_ratio`` times the new
-        swell's peak: a bowed or blown attack that comes in two stages is one note. 0: off.
-    max_rise : float, optional
-        Seconds. For struck and plucked instruments: a note whose activation takes longer
-        than this from its onset to 80 % of its peak is dropped. Such a note has no attack:
-        it is a slow swell of shared partials (a held chord's energy drifting to this
-        template, or the foot of the next stroke), not a new stroke. None: no such test.
-    attack_zones : np.ndarray of bool (n_pitches, n_frames), optional
-        Where the part starts each pitch (score-informed mode, melodic instruments). With
-        ``novelty``, a note whose rise has no novelty peak of ``novelty_snap`` just before it
-        starts at the strongest novelty peak of at least ``zone_snap`` inside the zone and
-        before its rise: a slow bowed swell crosses ``attack_fraction`` of its peak long
-        after the bow started it. Only the placement of detected notes changes.
-    zone_snap : float
-        Smallest novelty peak that places an onset inside ``attack_zones``.
-    attack_fraction : float
-        The onset is placed where the activation, rising to the note's peak, crosses
-        this fraction of the peak.
+        Per-pitch onset novelty (:func:`pitch_novelty`): its peaks split and place onsets.
+    part_starts : np.ndarray of bool (n_pitches, n_frames), optional
+        Where the part starts each pitch (score-informed). Polyphonic: a re-onset there needs
+        less evidence (repeated chords). Melodic: a weaker novelty peak inside the zone places a
+        slow swell's onset (``zone_snap``); only the placement of detected notes changes.
+    part_repeats : np.ndarray of bool (n_pitches, n_frames), optional
+        Where the part starts a pitch again right after a note of it (melodic only): a valley
+        between two swells there is a new bow stroke or breath. The score is a prior, not a cage.
 
     Returns
     -------
@@ -431,107 +331,25 @@ def activations_to_notes(
     K, T = H.shape
     if T < 2 or K == 0:
         return []
-    ref = float(H.max()) if reference is None else float(reference)
-    if ref <= 0:
+    ctx = _frames(H, frame_times, settings, polyphonic=polyphonic, onset_thresholds=onset_thresholds,
+                  novelty=novelty, part_starts=part_starts, part_repeats=part_repeats)
+    levels = _normalised(H, settings, reference, ctx.hop, polyphonic)
+    if levels is None:
         return []
-    Hn = H.astype(np.float64) / ref
-    if smoothing > 1:
-        Hn = scipy.ndimage.median_filter(Hn, size=(1, int(smoothing)), mode="nearest")
-    hop = float(np.median(np.diff(frame_times))) if T > 1 else 0.01
-    # local reference: the loudest activation within +-local_window seconds, floored
-    if local_window > 0:
-        width = max(int(round(2 * local_window / hop)) | 1, 1)
-        local = scipy.ndimage.maximum_filter1d(Hn.max(axis=0), size=width, mode="nearest")
-        local = np.maximum(local, local_floor)
-    else:
-        local = np.ones(T)
-    Hl = Hn / local[None, :]  # locally normalised activations, at most 1
-    Hsel = Hl if polyphonic else monophonic_activations(Hl, silence_level=2 * offset_threshold)
-    thresholds = np.broadcast_to(np.asarray(onset_threshold, dtype=float), Hn.shape)
-    rise = np.full(T, reonset_rise)
-    end_time = frame_times[-1] + hop
-    lookback = max(int(round(0.1 / hop)), 1)
-    repeat_frames = max(int(round(repeat_window / hop)), 1)
-    notch_frames = int(round(notch_width / hop)) if notch_width > 0 else 0
-    for name, zones in (("expected_repeats", expected_repeats), ("attack_zones", attack_zones)):
-        if zones is not None and np.shape(zones) != H.shape:
-            raise InputError(f"{name} must have the shape of H {H.shape}, got {np.shape(zones)}")
+    Hn, Hl, Hsel = levels
     notes: list[Note] = []
     for k in range(K):
-        a = Hsel[k]
-        full = Hl[k]
-        above = a > offset_threshold
+        above = Hsel[k] > settings.offset_threshold
         if not above.any():
             continue
-        labels, n_regions = scipy.ndimage.label(above)
+        labels, _ = scipy.ndimage.label(above)
         previous_end = 0
         for sl in scipy.ndimage.find_objects(labels):
-            start, stop = sl[0].start, sl[0].stop
-            onsets, placed = _split_onsets(a, start, stop, rise, reonset_frames, reonset_dip,
-                                   None if novelty is None else novelty[k], novelty_threshold,
-                                   None if expected_onsets is None else expected_onsets[k],
-                                   None if expected_repeats is None else expected_repeats[k], repeat_frames,
-                                   None if polyphonic else valley_dip, repeat_dip, min_fall, notch_frames)
-            if stage_window > 0 and not polyphonic:
-                onsets = _merge_attack_stages(a, onsets, placed, stop, frame_times, stage_window, stage_ratio)
-            for i, on in enumerate(onsets):
-                nxt = onsets[i + 1] if i + 1 < len(onsets) else stop
-                part = a[on:nxt]
-                if len(part) == 0:
-                    continue
-                peak_i = int(np.argmax(part))
-                peak = float(part[peak_i])
-                if peak < float(thresholds[k, on + peak_i]):
-                    continue
-                # onset where the rise towards the peak crosses `attack_fraction` of it;
-                # melodic decoding may hide the start of the rise, so look back on the
-                # undecoded activation (never past the previous note of this pitch)
-                first = max(on - (lookback if i == 0 else 0), previous_end)
-                rising = full[first: on + peak_i + 1]
-                below = np.nonzero(rising < attack_fraction * peak)[0]
-                onset_frame = first + (int(below[-1]) + 1 if len(below) else 0)
-                onset_frame = max(min(onset_frame, on), first) if i == 0 and not len(below) else onset_frame
-                if on in placed:
-                    onset_frame = on  # a repeat valley: the onset is where the old stroke fades
-                if novelty is not None and on not in placed:
-                    # snap to the strongest attack of this pitch shortly before or at the rise
-                    lo = max(onset_frame - lookback, first)
-                    window = novelty[k, lo: onset_frame + 2]
-                    if len(window) and window.max() >= novelty_snap:
-                        onset_frame = lo + int(np.argmax(window))
-                    elif attack_zones is not None:
-                        # where the part starts this pitch, a slow swell may cross the attack
-                        # level long after its start: a weaker attack of its partials inside
-                        # the written onset's zone and before the rise marks the start
-                        window = novelty[k, first: onset_frame + 2] * attack_zones[k, first: onset_frame + 2]
-                        if len(window) and window.max() >= zone_snap:
-                            onset_frame = first + int(np.argmax(window))
-                if max_rise is not None and on not in placed:
-                    # a stroke reaches most of its peak at once; a slow swell is no stroke
-                    reached = int(np.argmax(part[: peak_i + 1] >= 0.8 * peak))
-                    if frame_times[on + reached] - frame_times[min(onset_frame, on + reached)] > max_rise:
-                        continue
-                # release: first frame after the peak below release_ratio * peak
-                after = part[peak_i:]
-                low = np.nonzero(after < release_ratio * peak)[0]
-                end_frame = on + peak_i + (int(low[0]) if len(low) else len(after))
-                previous_end = end_frame
-                onset = frame_times[onset_frame] + onset_shift
-                offset = (frame_times[end_frame] if end_frame < T else end_time) + onset_shift
-                if offset - onset < min_duration:
-                    continue
-                loudness = float(Hn[k, on + peak_i])
-                velocity = int(np.clip(round(127 * np.sqrt(min(loudness, 1.0))), 1, 127))
-                notes.append(Note(max(onset, 0.0), max(offset, onset + 1e-3), int(pitches[k]), velocity))
+            found, previous_end = _region_notes(k, int(pitches[k]), Hsel[k], Hl[k], Hn[k], sl[0].start, sl[0].stop,
+                                                previous_end, ctx)
+            notes += found
     notes = sort_notes(notes)
-    if not polyphonic:
-        # one note at a time: a note ends where the next one starts (an onset placed on the
-        # attack of the next note can fall before the decoded end of this one)
-        for i in range(len(notes) - 1):
-            nxt = notes[i + 1].onset
-            if notes[i].onset < nxt < notes[i].offset:
-                notes[i] = dataclasses.replace(notes[i], offset=max(nxt, notes[i].onset + min_duration))
-    return notes
+    return notes if polyphonic else _one_at_a_time(notes, settings.min_duration)
 
 
 def suppress_harmonic_ghosts(
