@@ -15,6 +15,8 @@ from __future__ import annotations
 
 import hashlib
 import re
+import shutil
+import subprocess
 from pathlib import Path
 
 import numpy as np
@@ -262,3 +264,42 @@ def test_transcribe_refuses_bad_score(capsys, inputs, outputs, good_take, case):
     part = BAD_PARTS[case](inputs)
     _check_refused(capsys, ["transcribe", good_take, "--score", part, "-o", outputs / "draft.mid"],
                    part, inputs, outputs, quiet=True)
+
+
+def test_quiet_take_with_flattened_tops_is_warned(tmp_path):
+    # issue #17: a take peaking at -50 dBFS with a third of its tops flattened got no warning.
+    # A sine clipped at full scale, then turned down by 50 dB: its flattened share is known in
+    # closed form (a sine of amplitude 1.6 clipped at 1 stays flat for 1 - 2*asin(1/1.6)/pi of the time)
+    import math
+    import warnings
+
+    import numpy as np
+    import soundfile as sf
+
+    from takescribe.audio.load import load_audio
+
+    sr = 44100
+    t = np.arange(3 * sr) / sr
+    y = np.clip(1.6 * np.sin(2 * np.pi * 220 * t), -1, 1) * 10 ** (-50 / 20)
+    path = tmp_path / "quiet.wav"
+    sf.write(path, y.astype(np.float32), sr, subtype="FLOAT")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        load_audio(path, sr=22050)
+    messages = " ".join(str(w.message) for w in caught)
+    assert "very quiet take (peak -50 dBFS)" in messages
+    flat = 1 - 2 * math.asin(1 / 1.6) / math.pi
+    shown = float(re.search(r"([\d.]+) % of samples are flattened tops at -50 dBFS", messages).group(1))
+    assert abs(shown / 100 - flat) < 0.02  # runs shorter than 4 samples at the edges are not counted
+
+
+def test_valid_flac_without_samples_is_called_empty(tmp_path, capsys):
+    # FLAC format: STREAMINFO's 36-bit total of samples is 0 and no audio frame follows
+    if shutil.which("ffmpeg") is None:
+        pytest.skip("ffmpeg is needed to write a FLAC file without samples")
+    path = tmp_path / "empty.flac"
+    subprocess.run(["ffmpeg", "-loglevel", "error", "-y", "-f", "lavfi", "-i", "anullsrc=r=44100:cl=mono",
+                    "-frames:a", "0", str(path)], check=True)
+    code, _, err = run(capsys, ["transcribe", path, "-o", tmp_path / "a.mid"])
+    assert code == EXIT_BAD_INPUT and "empty.flac: is empty: a valid FLAC file that holds no samples" in err
+    assert not (tmp_path / "a.mid").exists()

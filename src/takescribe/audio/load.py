@@ -78,6 +78,8 @@ __all__ = [
 MIN_DURATION = 0.5
 #: A take whose peak is below this level (dBFS) is treated as silent.
 SILENCE_PEAK_DBFS = -60.0
+#: A take whose peak is below this level (dBFS) is very quiet: its notes sit close to the noise floor.
+QUIET_PEAK_DBFS = -30.0
 #: Warn about clipping when more than this fraction of samples sits at full scale.
 CLIPPING_FRACTION = 0.01
 #: Remove the mean of the mono signal (and warn) when its magnitude exceeds this.
@@ -662,6 +664,7 @@ class _ReadStats:
     n_samples: int
     peak: float
     mean: float = 0.0
+    flat_tops: dict | None = None  # |value| -> samples in runs of equal values (see _count_flat_runs)
 
 
 class _FileSink:
@@ -730,6 +733,7 @@ def _read_resampled(
     n_read = n_nonfinite = n_clipped = 0
     peak = 0.0
     total = 0.0
+    flat_tops: dict = {}
 
     def append(chunk: np.ndarray) -> None:
         nonlocal y, filled, total
@@ -763,6 +767,7 @@ def _read_resampled(
                 if magnitude.size:
                     peak = max(peak, float(magnitude.max()))
                 n_clipped += int(np.count_nonzero(magnitude >= clip_level))
+                _count_flat_runs(block, flat_tops, peak)
                 mono = block[:, 0] if n_channels == 1 else block.mean(axis=1, dtype=np.float32)
                 append(mono if stream is None else stream.resample_chunk(mono, last=False))
             if stream is not None:
@@ -774,6 +779,9 @@ def _read_resampled(
     except (sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
         if sink is not None:
             sink.file.close()
+        if n_read == 0 and info.format == "FLAC" and _flac_total_samples(path) == 0:
+            raise AudioError(f"{path}: is empty: a valid FLAC file that holds no samples; record or export the take"
+                             " again") from exc
         detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
         raise AudioError(
             f"{path}: damaged or truncated {info.format} file (decoding failed: {detail}); "
@@ -790,8 +798,64 @@ def _read_resampled(
     elif y.size != n_final:
         y.resize(n_final, refcheck=False)
     stats = _ReadStats(n_read=n_read, n_nonfinite=n_nonfinite, n_clipped=n_clipped,
-                       n_samples=n_read * n_channels, peak=peak, mean=total / max(filled, 1))
+                       n_samples=n_read * n_channels, peak=peak, mean=total / max(filled, 1), flat_tops=flat_tops)
     return (y if sink is None else sink), stats
+
+
+def _flac_total_samples(path: Path) -> int | None:
+    """Total samples of a FLAC STREAMINFO block (0: unknown or none), None if it cannot be read.
+
+    FLAC format: "fLaC", a 4-byte metadata block header, then STREAMINFO, whose bytes 10..17
+    hold 20 bits of sample rate, 3 of channels, 5 of bits per sample and 36 of total samples.
+    """
+    head = _read_head(path, 26)
+    if len(head) < 26 or head[:4] != b"fLaC" or head[4] & 0x7F != 0:
+        return None
+    return int.from_bytes(head[18:26], "big") & ((1 << 36) - 1)
+
+
+def _count_flat_runs(block: np.ndarray, counts: dict, peak: float) -> None:
+    """Add to ``counts`` (|value| -> samples) the runs of equal samples of ``block``, per channel.
+
+    Candidates for flattened tops (see :func:`takescribe.audio.check.clipped_fraction`, whose
+    rule this applies block by block so memory stays flat): runs far below the running peak
+    (quiet passages of integer audio repeat values too) are pruned as the read goes on.
+    """
+    from .check import CHECK_SETTINGS
+
+    min_run = CHECK_SETTINGS.clip_min_run
+    for channel in range(block.shape[1]):
+        x = block[:, channel]
+        if x.size < min_run:
+            continue
+        edges = np.diff(np.concatenate([[0], (x[1:] == x[:-1]).astype(np.int8), [0]]))
+        starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+        runs = ends - starts + 1
+        keep = (runs >= min_run) & (np.abs(x[starts]) >= 0.5 * peak) & (x[starts] != 0)
+        if not keep.any():
+            continue
+        values, inverse = np.unique(np.abs(x[starts[keep]]), return_inverse=True)
+        for value, n in zip(values.tolist(), np.bincount(inverse, weights=runs[keep]).tolist()):
+            counts[value] = counts.get(value, 0) + int(n)
+    for value in [v for v in counts if v < 0.5 * peak]:
+        del counts[value]
+
+
+def _warn_about_level(path: Path, info: AudioInfo, stats: _ReadStats) -> None:
+    """Very quiet takes, and flattened tops below full scale (clipped, then turned down)."""
+    from .check import CHECK_SETTINGS
+
+    peak_dbfs = 20.0 * math.log10(stats.peak)
+    if peak_dbfs < QUIET_PEAK_DBFS:
+        _warn(f"{path}: very quiet take (peak {peak_dbfs:.0f} dBFS); quiet notes may be lost in the noise;"
+              " raise the input level and record again if you can", stacklevel=5)
+    flat = sum(n for value, n in (stats.flat_tops or {}).items() if value >= CHECK_SETTINGS.clip_level * stats.peak)
+    fraction = flat / max(stats.n_samples, 1)
+    below_full_scale = stats.peak < _CLIP_LEVEL * _FULL_SCALE.get(info.subtype, 1.0)
+    if below_full_scale and fraction > CHECK_SETTINGS.max_clipped_fraction:
+        _warn(f"{path}: {100.0 * fraction:.1f} % of samples are flattened tops at {peak_dbfs:.0f} dBFS, below full"
+              " scale: the take was clipped before it was turned down; notes may be misread (louder partials"
+              " appear), record again with lower input gain", stacklevel=5)
 
 
 def _warn_about_content(path: Path, info: AudioInfo, stats: _ReadStats, *, sr: int) -> float:
@@ -810,6 +874,7 @@ def _warn_about_content(path: Path, info: AudioInfo, stats: _ReadStats, *, sr: i
             "check the input level or the microphone"
         )
         return 0.0
+    _warn_about_level(path, info, stats)
     if stats.n_samples and stats.n_clipped > CLIPPING_FRACTION * stats.n_samples:
         _warn(
             f"{path}: heavy clipping: {100.0 * stats.n_clipped / stats.n_samples:.1f} % of samples are at full "
@@ -825,6 +890,6 @@ def _warn_about_content(path: Path, info: AudioInfo, stats: _ReadStats, *, sr: i
     return 0.0
 
 
-def _warn(message: str) -> None:
+def _warn(message: str, *, stacklevel: int = 4) -> None:
     # stacklevel 4: _warn -> _warn_about_content -> load_audio -> caller
-    warnings.warn(TakescribeWarning(message), stacklevel=4)
+    warnings.warn(TakescribeWarning(message), stacklevel=stacklevel)
