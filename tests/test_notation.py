@@ -21,13 +21,13 @@ import numpy as np
 import pytest
 
 from takescribe.errors import InputError, OutputError
-from takescribe.notation.notate import (
+from takescribe.features.onsets import onset_envelope, onset_strength
+from takescribe.notation import (
     Notation,
     QuantizedNote,
     assign_voices,
     estimate_meter,
     notate,
-    onset_envelope,
     parse_time_signature,
     quantize,
     spell_pitch,
@@ -260,7 +260,10 @@ def _merged_notes(part: stream.Part) -> list[tuple[int, str, Fraction, Fraction]
 def note_table(score: stream.Score) -> list[tuple]:
     """(midi, spelled name, bar index, position in bar, notated length) of every sounding note,
     tied notes merged, chords expanded; a pickup bar counts from where its notes fall in a
-    full bar."""
+    full bar. Parts written for a transposing instrument are read at sounding pitch (music21
+    undoes the ``<transpose>`` element)."""
+    if any(p.atSoundingPitch is False for p in score.parts):
+        score = score.toSoundingPitch()
     rows = []
     for part in score.parts:
         measures = list(part.getElementsByClass(stream.Measure))
@@ -362,7 +365,7 @@ def _roundtrip(name: str, tmp_path: Path, *, with_reference: bool) -> tuple[floa
         notation = notate(notes, reference=reference_of(score, program, instrument), alignment=IdentityAlignment())
     else:
         y, sr = render_audio(notes, program, tmp_path)
-        notation = notate(notes, y=y, sr=sr, instrument_name=instrument, midi_program=program)
+        notation = notate(notes, onsets=onset_strength(y, sr), instrument_name=instrument, midi_program=program)
     path = write_musicxml(notation, tmp_path / f"{name}.musicxml")
     got = note_table(converter.parse(str(path)))
     return agreement(truth, got, relative_bars=not with_reference), notation, path
@@ -484,7 +487,7 @@ def test_second_voice_where_lines_overlap():
 def _steady_grid(period=0.5, n=16, ts="4/4"):
     notes = [Note(period * i, period * i + 0.9 * period, 60 - 12 * (i % 4 == 0), 90 if i % 4 == 0 else 60)
              for i in range(n)]
-    grid = estimate_meter(None, None, notes, tempo=60 / period, time_signature=ts)
+    grid = estimate_meter(notes, tempo=60 / period, time_signature=ts)
     assert grid.downbeat_index == 0  # the low, loud notes start the bars
     return grid
 
@@ -551,9 +554,9 @@ def test_time_signature_parsing_and_errors():
     with pytest.raises(InputError, match="denominator one of"):
         parse_time_signature("4/5")
     with pytest.raises(InputError, match="tempo must be"):
-        estimate_meter(None, None, [Note(0, 1, 60)], tempo=5)
-    with pytest.raises(InputError, match="give the take audio"):
-        estimate_meter(None, None, [])
+        estimate_meter([Note(0, 1, 60)], tempo=5)
+    with pytest.raises(InputError, match="give the take.s onset evidence"):
+        estimate_meter([])
 
 
 def test_overrides_give_the_asked_meter_and_tempo():

@@ -38,7 +38,7 @@ from pathlib import Path
 from typing import Callable, Iterator
 
 from ..errors import InputError
-from ..notation.notate import notate, write_musicxml
+from ..notation import notate, write_musicxml
 from ..jobs.pipeline import REPORT_FILES, compare_file, load_take, write_draft_midi
 from ..safeio import check_writable, ensure_folder
 
@@ -202,8 +202,9 @@ def _run_student(source: Path, out: Path, entry: dict, *, force: bool,
         say("notation of the draft")
     y, sr = load_take(take)
     result = outputs.transcription
-    notation = notate(result.notes, reference=outputs.reference, alignment=outputs.alignment, y=y, sr=sr,
-                      instrument_name=result.instrument.gm_name, midi_program=result.instrument.program)
+    notation = notate(result.notes, reference=outputs.reference, alignment=outputs.alignment,
+                      instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
+                      measured_offsets=not result.instrument.decaying, title=Path(take).stem)
     written = [Path(p) for p in outputs.written.values()]
     written.append(Path(write_draft_midi(out / "draft.mid", result, notation=notation, force=force)))
     written.append(Path(write_musicxml(notation, out / "draft.musicxml", force=force)))

@@ -30,7 +30,9 @@ from ..transcription.informed import faint_notes, informed_transcription, score_
 from ..transcription.instruments import Instrument, resolve_instrument
 from ..export.midi import MidiTrack, midi_bytes, write_midi
 from ..transcription.nmf import decompose
-from ..notation.notate import notate, write_musicxml
+from ..features.onsets import onset_strength
+from ..notation import grid_from_reference, notate, write_musicxml
+from ..notation.model import performed_conductor
 from ..export.noteio import read_notes, write_maps
 from ..report.practice import ReportDetails, write_report
 from ..report.voice import part_voice
@@ -177,6 +179,8 @@ def transcribe_file(
     force: bool = False,
     progress: Callable[[str], None] | None = None,
     room: str = "dry",
+    transposition: int | None = None,
+    concert_pitch: bool = False,
 ) -> TranscribeOutputs:
     """The ``transcribe`` job: a take (and optionally its part) to draft files.
 
@@ -195,14 +199,16 @@ def transcribe_file(
         out = transcribe_into(take_path, staged, midi_path=midi_path, notes_path=notes_path,
                              musicxml_path=musicxml_path, instrument=instrument, score_path=score_path, part=part,
                              dictionary_path=dictionary_path, tempo=tempo, time_signature=time_signature, grid=grid,
-                             midi_type=midi_type, quantized_midi=quantized_midi, progress=progress, room=room)
+                             midi_type=midi_type, quantized_midi=quantized_midi, progress=progress, room=room,
+                             transposition=transposition, concert_pitch=concert_pitch)
     return out
 
 
 def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None, musicxml_path=None, instrument=None,
                     score_path=None, part=None, dictionary_path=None, tempo: float | None = None, time_signature=None,
                     grid: str | None = None, midi_type: int = 1, quantized_midi: bool = False,
-                    progress: Callable[[str], None] | None = None, room: str = "dry") -> TranscribeOutputs:
+                    progress: Callable[[str], None] | None = None, room: str = "dry",
+                    transposition: int | None = None, concert_pitch: bool = False) -> TranscribeOutputs:
     """The work of :func:`transcribe_file`, writing each output to its staging path ``staged[path]``."""
     preset = resolve_instrument(instrument) if instrument is not None else None
     reference = load_reference(score_path, part=part) if score_path is not None else None
@@ -215,9 +221,12 @@ def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None,
         if progress:
             progress("notation: meter, quantization, key, staves")
         notation = notate(
-            result.notes, reference=reference, alignment=alignment, y=y, sr=sr,
+            result.notes, reference=reference, alignment=alignment,
+            onsets=onset_strength(y, sr) if reference is None else None,
             instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
             tempo=tempo, time_signature=time_signature, grid=grid,
+            measured_offsets=not result.instrument.decaying, title=Path(take_path).stem,
+            transposition=transposition,
         )
     written = []
     if midi_path is not None:
@@ -229,22 +238,24 @@ def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None,
         written.append(Path(notes_path))
         fault_point("between-outputs")
     if musicxml_path is not None:
-        write_musicxml(notation, staged[musicxml_path])
+        write_musicxml(notation, staged[musicxml_path], concert_pitch=concert_pitch)
         written.append(Path(musicxml_path))
     return TranscribeOutputs(result, written, reference, alignment, notation)
 
 
-def draft_midi_tracks(result: Transcription, *, notation=None, quantized: bool = False):
-    """Tracks, tempo map and time signatures of the draft MIDI file."""
+def draft_midi_tracks(result: Transcription, *, notation=None, quantized: bool = False, grid=None):
+    """Tracks, tempo map and time signatures of the draft MIDI file (performed timing unless
+    ``quantized``; the conductor follows the notation's beat grid, or ``grid``)."""
     if quantized and notation is not None:
         tracks = [MidiTrack(name, tuple(notes), program=program) for name, notes, program in notation.midi_tracks()]
         return tracks, notation.tempo_map(), notation.time_signature_map()
     name = result.instrument.gm_name
     tracks = [MidiTrack(f"{name} (takescribe draft)", tuple(result.notes), program=result.instrument.program)]
-    if notation is not None:
-        bpm = float(notation.grid.bpm * float(notation.grid.beat_quarters))
-        first = notation.grid.time_signatures[0]
-        return tracks, [(0.0, bpm)], [(0.0, int(first[1]), int(first[2]))]
+    grid = notation.grid if notation is not None else grid
+    if grid is not None:
+        # the same meter and tempo changes as the notated draft, at the take's beats
+        tempo_map, time_signatures = performed_conductor(grid)
+        return tracks, tempo_map, time_signatures
     return tracks, [(0.0, 120.0)], [(0.0, 4, 4)]
 
 
@@ -396,7 +407,9 @@ def compare_into(folder: Path, take_path, score_path, *, part=None, instrument=N
         y, sr, reference, instrument=instrument, dictionary=dictionary, timing_tolerance=timing_tolerance,
         duration_tolerance=duration_tolerance, allow_mismatch=allow_mismatch, source=str(take_path),
         progress=progress, room=room)
-    tracks, tempo_map, time_signatures = draft_midi_tracks(result)
+    last = max((n.offset for n in result.notes), default=0.0)
+    grid = grid_from_reference(reference, alignment, last_seconds=last)
+    tracks, tempo_map, time_signatures = draft_midi_tracks(result, grid=grid)
     draft = midi_bytes(tracks, tempo_map=tempo_map, time_signatures=time_signatures, title="takescribe draft")
     if progress:
         progress("writing the report")

@@ -44,7 +44,7 @@ import posixpath
 import re
 import warnings
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Sequence
 
@@ -160,6 +160,11 @@ class Reference:
         The file the part was read from.
     measure_labels : tuple of str
         Printed bar number of each bar in performance order.
+    title, composer : str
+        From the MusicXML header ("" when absent).
+    transposition : int
+        Semitones from written to sounding pitch of a transposing part (``<transpose>``:
+        -2 for a B-flat clarinet); notes, spellings and key are at sounding pitch.
     """
 
     notes: tuple[ScoreNote, ...]
@@ -173,6 +178,9 @@ class Reference:
     midi_program: int | None = None
     source: str = ""
     measure_labels: tuple[str, ...] = ()
+    title: str = ""
+    composer: str = ""
+    transposition: int = 0
 
     # --- time conversions -------------------------------------------------
     def _tempo_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -993,10 +1001,28 @@ def load_part(path, *, part: int | str | None = None) -> LoadedPart:
 
 
 def _reference_from_score(score, index: int, path: Path) -> Reference:
+    header, score = _header_at_sounding_pitch(score, index)
     expanded = _expand(score, path)
     if len(_group_parts(expanded)) != len(_group_parts(score)):
         expanded = score
-    return _build_reference(_musicxml_part(expanded, index, path, written=score), path)
+    return replace(_build_reference(_musicxml_part(expanded, index, path, written=score), path), **header)
+
+
+def _header_at_sounding_pitch(score, index: int):
+    """Title, composer and the chosen part's transposition; the score at sounding pitch
+    (music21 moves the notes and key signatures of parts read with ``<transpose>``)."""
+    md = score.metadata
+    title = str((md.title or md.movementName or "") if md is not None else "").strip()
+    composer = str((md.composer or "") if md is not None else "").strip()
+    # a library's placeholders are no title (music21 writes them when a score has none)
+    title = "" if title == "Music21 Fragment" else title
+    composer = "" if composer == "Music21" else composer
+    inst = _group_parts(score)[index][1][0].getInstrument(returnDefault=False)
+    interval = getattr(inst, "transposition", None) if inst is not None else None
+    semitones = int(interval.semitones) if interval is not None else 0
+    if any(p.atSoundingPitch is False for p in score.parts):
+        score = score.toSoundingPitch()
+    return {"title": title, "composer": composer, "transposition": semitones}, score
 
 
 def load_reference(path, *, part: int | str | None = None) -> Reference:
