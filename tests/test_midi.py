@@ -8,6 +8,7 @@ the merged tracks) and pretty_midi as independent readers.
 
 from __future__ import annotations
 
+import io
 import struct
 
 import mido
@@ -18,6 +19,7 @@ import pytest
 from takescribe.errors import NoteListError, OutputError
 from takescribe.export.midi import (
     MidiTrack,
+    midi_bytes,
     read_midi_notes,
     read_midi_tempo_map,
     read_midi_time_signatures,
@@ -290,3 +292,23 @@ def test_corrupt_files_raise_note_list_error(tmp_path):
         read_midi_notes(tmp_path / "missing.mid")
     with pytest.raises(NoteListError, match="truncated.mid"):
         read_midi_tempo_map(truncated)
+
+
+def test_performed_draft_carries_the_takes_meter_and_tempo_changes():
+    """The performed-timing draft of a 3/4 take that slows down carries 3/4 and the tempo
+    changes of its beat grid, so bar lines fall on the take's downbeats (pretty_midi's
+    reading of the written file gives the bar times; issue #16 item 5)."""
+    from takescribe.notation.grid import grid_from_times
+    from takescribe.notation.model import performed_conductor
+
+    beat_times = np.concatenate([0.5 * np.arange(7), 3.0 + 0.75 * np.arange(1, 7)])  # 120 then 80 per minute
+    grid = grid_from_times(beat_times, num=3, den=4, downbeat_index=0)
+    tempo_map, time_signatures = performed_conductor(grid)
+    assert time_signatures[0][1:] == (3, 4)
+    assert [round(b) for _, b in tempo_map] == [120, 80]
+    notes = [Note(t, t + 0.3, 60) for t in beat_times[:-1]]
+    data = midi_bytes([MidiTrack("draft", tuple(notes))], tempo_map=tempo_map, time_signatures=time_signatures)
+    pm = pretty_midi.PrettyMIDI(io.BytesIO(data))
+    assert (pm.time_signature_changes[0].numerator, pm.time_signature_changes[0].denominator) == (3, 4)
+    downbeats = pm.get_downbeats()
+    np.testing.assert_allclose(downbeats[:4], beat_times[[0, 3, 6, 9]], atol=0.01)

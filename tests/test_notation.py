@@ -695,3 +695,129 @@ def test_blockwise_onset_envelope_equals_librosa(block_frames):
     got = onset_envelope(y, sr, hop_length=512, block_frames=block_frames)
     assert got.shape == expected.shape
     np.testing.assert_allclose(got, expected, rtol=1e-5, atol=1e-5 * float(expected.max()))
+
+
+# ---------------------------------------------------------------------------- drafts a reader can use (#16)
+
+TEST_OUTPUT = Path(__file__).resolve().parents[1] / "test-output" / "notation"
+
+
+def _engrave(path: Path) -> tuple[str, str]:
+    """verovio's SVG of the first page and its log (warnings and errors), logging to a buffer."""
+    verovio = pytest.importorskip("verovio")
+    verovio.enableLog(verovio.LOG_WARNING)
+    tk = verovio.toolkit()
+    tk.setOptions({"xmlIdSeed": 1})
+    assert tk.loadData(path.read_text(encoding="utf-8"))
+    svg = tk.renderToSVG(1)
+    return svg, tk.getLog()
+
+
+def _png(svg: str, name: str) -> Path | None:
+    """A PNG of an engraved page for a reader to look at (Chromium headless screenshot)."""
+    chromium = shutil.which("chromium") or shutil.which("chromium-browser")
+    if chromium is None:
+        return None
+    TEST_OUTPUT.mkdir(parents=True, exist_ok=True)
+    svg_path = TEST_OUTPUT / f"{name}.svg"
+    svg_path.write_text(svg, encoding="utf-8")
+    png = TEST_OUTPUT / f"{name}.png"
+    subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu", f"--screenshot={png}",
+                    "--window-size=1100,800", svg_path.as_uri()], capture_output=True, timeout=60, check=False)
+    return png if png.exists() else None
+
+
+def _family_drafts(tmp_path: Path) -> dict[str, tuple[Path, Notation]]:
+    """One draft per instrument family: piano with its part, a B-flat clarinet melody blind,
+    a violin melody with its part."""
+    out = {}
+    for family, (name, with_reference) in {"piano": ("study_d_minor_4-4_piano", True),
+                                           "clarinet": ("barcarolle_b_flat_6-8", False),
+                                           "strings": ("folk_zwei_koenigskinder", True)}.items():
+        build, program, instrument = PIECES[name]
+        score = build()
+        notes = perform(score)
+        if with_reference:
+            notation = notate(notes, reference=reference_of(score, program, instrument), alignment=IdentityAlignment())
+        else:
+            notation = notate(notes, midi_program=program, instrument_name=instrument, time_signature="6/8",
+                              title="Barcarolle")
+        out[family] = (write_musicxml(notation, tmp_path / f"{family}.musicxml"), notation)
+    return out
+
+
+def test_drafts_engrave_without_warnings_and_read_back(tmp_path, schema):
+    """Every family's draft: valid MusicXML 4.0 (the XSD), the same notes read back through
+    music21 (at sounding pitch), engraved by verovio with an empty warning log; a PNG per
+    family goes to test-output/notation/ for a reader."""
+    for family, (path, notation) in _family_drafts(tmp_path).items():
+        validate_xml(path, schema)
+        back = converter.parse(str(path))
+        if any(p.atSoundingPitch is False for p in back.parts):
+            back = back.toSoundingPitch()
+        got = Counter((midi, on, ql) for part in back.parts for midi, _, on, ql in _merged_notes(part))
+        assert got == Counter((n.pitch, n.onset_quarters, n.duration_quarters) for n in notation.notes()), family
+        svg, log = _engrave(path)
+        assert "<svg" in svg and not log.strip(), f"{family}: verovio says {log[:300]}"
+        _png(svg, family)
+
+
+def test_transposing_draft_written_pitch_and_concert_option(tmp_path, schema):
+    """A B-flat clarinet draft is written a major second up with <transpose> (chromatic -2,
+    MusicXML 4.0 <transpose>); the concert-pitch option writes sounding pitch without it."""
+    from lxml import etree
+
+    notes = [Note(0.5 * i, 0.5 * i + 0.45, p) for i, p in enumerate([70, 72, 74, 75, 77, 75, 74, 70])]
+    notation = notate(notes, midi_program=71, instrument_name="Clarinet", tempo=120, time_signature="4/4",
+                      title="Scale")
+    assert notation.transposition == -2
+    written = write_musicxml(notation, tmp_path / "written.musicxml")
+    concert = write_musicxml(notation, tmp_path / "concert.musicxml", concert_pitch=True)
+    for path in (written, concert):
+        validate_xml(path, schema)
+    root = etree.parse(str(written)).getroot()
+    assert root.findtext(".//transpose/chromatic") == "-2"
+    assert root.findtext(".//key/fifths") == "0"  # concert B-flat major, written C major
+    first = root.find(".//note/pitch")
+    assert (first.findtext("step"), first.findtext("octave")) == ("C", "5")
+    assert etree.parse(str(concert)).getroot().find(".//transpose") is None
+    # the title is the caller's, never the library's placeholders
+    assert root.findtext(".//work/work-title") == "Scale"
+    assert "Music21" not in written.read_text()
+
+
+def test_long_draft_written_in_blocks_is_valid_and_complete(tmp_path, schema):
+    """A draft longer than one block of bars (musicxml.BLOCK_BARS) is valid and reads back
+    with every note and every bar."""
+    from takescribe.notation.musicxml import BLOCK_BARS
+
+    rng = np.random.default_rng(5)
+    pitches = rng.integers(60, 72, size=4 * (BLOCK_BARS + 10))
+    notes = [Note(0.5 * i, 0.5 * i + 0.4, int(p)) for i, p in enumerate(pitches)]
+    notation = notate(notes, midi_program=73, instrument_name="Flute", tempo=120, time_signature="4/4")
+    path = write_musicxml(notation, tmp_path / "long.musicxml")
+    validate_xml(path, schema)
+    back = converter.parse(str(path))
+    assert len(back.parts[0].getElementsByClass(stream.Measure)) == BLOCK_BARS + 10
+    got = Counter((midi, on, ql) for part in back.parts for midi, _, on, ql in _merged_notes(part))
+    assert got == Counter((n.pitch, n.onset_quarters, n.duration_quarters) for n in notation.notes())
+
+
+def test_with_the_part_played_notes_take_the_written_values():
+    """A decaying piano note heard for half its written length keeps the part's half note;
+    the bar count is the part's (issue #16: the draft is the part with the player's
+    deviations in it)."""
+    from takescribe.reference.part import load_reference
+
+    score = piece_waltz_g()
+    path = Path(tmp := __import__("tempfile").mkdtemp()) / "waltz.musicxml"
+    score.write("musicxml", fp=str(path))
+    reference = load_reference(path)
+    played = [Note(n.onset, n.onset + 0.5 * (n.offset - n.onset), n.pitch, 80) for n in reference.notes]
+    notation = notate(played, reference=reference)
+    got = {(n.onset_quarters, n.pitch): n.duration_quarters for n in notation.notes()}
+    want = {(Fraction(n.onset_quarters).limit_denominator(48), n.pitch):
+            Fraction(n.duration_quarters).limit_denominator(48) for n in reference.notes}
+    assert got == want
+    assert len(notation.grid.measures_until(notation.bars_end_quarters())) == len(reference.measure_starts) - 1
+    shutil.rmtree(tmp)
