@@ -69,16 +69,16 @@ def analyse_take(take_path: Path, part_path: Path, out: Path, *, part_name=None,
                  progress=None) -> None:
     """The analysis of one take: the practice report of :func:`takescribe.jobs.pipeline.compare_file`
     plus the draft (MIDI and MusicXML) notated from the same transcription, as the demo does."""
-    from ..jobs.pipeline import compare_file, load_take, write_draft_midi
-    from ..notation.notate import notate, write_musicxml
+    from ..jobs.pipeline import compare_file, write_draft_midi
+    from ..notation import notate, write_musicxml
 
     outputs = compare_file(take_path, part_path, out, part=part_name, instrument=instrument, progress=progress)
     if progress:
         progress("notation of the draft")
-    y, sr = load_take(take_path)
     result = outputs.transcription
-    notation = notate(result.notes, reference=outputs.reference, alignment=outputs.alignment, y=y, sr=sr,
-                      instrument_name=result.instrument.gm_name, midi_program=result.instrument.program)
+    notation = notate(result.notes, reference=outputs.reference, alignment=outputs.alignment,
+                      instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
+                      measured_offsets=not result.instrument.decaying, title=Path(take_path).stem)
     write_draft_midi(out / "draft.mid", result, notation=notation)
     write_musicxml(notation, out / "draft.musicxml")
 

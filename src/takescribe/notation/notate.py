@@ -44,6 +44,9 @@ from .staves import assign_voices, split_hands
 
 __all__ = ["notate", "is_decaying_program"]
 
+# the names importable from this module before the split (0.1), kept for one release
+from .musicxml import musicxml_string, to_music21, write_musicxml  # noqa: E402,F401
+
 _PIANO_PROGRAMS = range(0, 8)
 # General MIDI programs whose sound decays by itself (pianos, chromatic percussion, guitars,
 # basses, pizzicato, harp, timpani, ethnic plucked, percussive): their measured ends say little
