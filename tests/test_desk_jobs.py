@@ -97,3 +97,38 @@ def test_full_disk_gives_a_clear_message_and_no_entry(small_disk):
     assert not list((lib.root / "audio").iterdir()) and not list((lib.root / "staging").iterdir())
     assert _rows(lib.root / "desk.sqlite", "PRAGMA integrity_check") == [("ok",)]
     lib.engine.dispose()
+
+
+def test_jobs_can_be_handed_to_a_dask_cluster(tmp_path):
+    distributed = pytest.importorskip("distributed", reason="dask.distributed is not installed")
+    import time
+
+    from takescribe.desk.library import add_take
+    from takescribe.desk.queue import JobRunner
+
+    lib = open_library(tmp_path / "lib")
+    part = staging_path(lib)
+    shutil.copyfile(DEMO / "piano" / "part.musicxml", part)
+    piece = add_piece(lib, title="Lantern Waltz", instrument="piano", part_file=part, part_label="part.musicxml")
+    student = add_student(lib, "Maren")
+    audio = staging_path(lib)
+    shutil.copyfile(WEEKS[0], audio)
+    made = add_take(lib, student_id=student, piece_id=piece, date="2026-11-02", label="week1.ogg", audio_file=audio)
+    # the recording vanishes before its turn (a disk that went away): the Dask worker runs the job,
+    # which fails quickly with the reader's message, written to the database by the worker
+    (lib.root / "audio" / f"{made['take_id']}.ogg").unlink()
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
+        runner = JobRunner(lib, scheduler=cluster.scheduler_address)
+        runner.start()
+        try:
+            end = time.monotonic() + 60
+            while time.monotonic() < end:
+                state = _rows(lib.root / "desk.sqlite", f"SELECT status, message FROM jobs WHERE id = {made['job_id']}")
+                if state[0][0] in ("failed", "done"):
+                    break
+                time.sleep(0.3)
+        finally:
+            runner.stop()
+    assert state[0][0] == "failed" and "week1.ogg" in state[0][1], state
+    assert _rows(lib.root / "desk.sqlite", "SELECT status FROM takes") == [("failed",)]
+    lib.engine.dispose()

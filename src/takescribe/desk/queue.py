@@ -25,7 +25,7 @@ from pathlib import Path
 
 import sqlalchemy as sa
 
-from ..errors import ScoreError, TakescribeError
+from ..errors import AudioError, ScoreError, TakescribeError
 from . import db
 
 __all__ = ["JobRunner", "run_job", "recover", "claim_next", "analyse_take", "EXPECTED_STAGES"]
@@ -173,6 +173,9 @@ def run_job(url: str, root: str, job_id: int, attempt: int) -> str:
         try:
             staging.mkdir(parents=True)
             # the report names the recording: under the teacher's name for it, not the stored id
+            if not (root_path / row.audio_file).is_file():
+                raise AudioError(f"{row.label}: its recording ({row.audio_file}) is missing from the library"
+                                 " folder; remove the take and bring it in again")
             named = staging / "take" / (Path(row.label).stem + Path(row.audio_file).suffix)
             named.parent.mkdir()
             try:
