@@ -468,6 +468,67 @@ def _rooms_section(args) -> dict:
     return out
 
 
+# ----------------------------------------------------------------------------- world corpus (issue #20)
+
+
+def run_world_take(folder: Path, take: dict, *, melodic=None) -> dict:
+    """Blind transcription of one world-corpus take: onset F, onset+offset F, onset bias, RTF."""
+    from takescribe.evaluation.matching import match_notes
+    from takescribe.notes import notes_to_arrays
+
+    evaluate_notes, read_maps, load_take, _, _ = _imports()
+    from takescribe.transcription.blind import transcribe
+    from takescribe.transcription.blocks import LONG_TAKE_SECONDS
+
+    y, sr = load_take(folder / take["files"]["audio"])
+    truth = read_maps(folder / take["files"]["played"])
+    assert len(y) <= LONG_TAKE_SECONDS * sr, "world takes are short: one pass"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        t0 = time.perf_counter()
+        notes = transcribe(y, sr, instrument=take["program"], melodic=melodic).notes
+        elapsed = time.perf_counter() - t0
+    scores = evaluate_notes(truth, notes)
+    ri, rp, _ = notes_to_arrays(truth)
+    ei, ep, _ = notes_to_arrays(notes)
+    pairs = match_notes(ri, rp, ei, ep, offset_ratio=None) if len(notes) and len(truth) else []
+    errors = [ei[j, 0] - ri[i, 0] for i, j in pairs]
+    return {k: take[k] for k in ("id", "split", "family", "instrument", "condition")} | {
+        "onset_f": float(scores["onset.f_measure"]), "onset_offset_f": float(scores["onset_offset.f_measure"]),
+        "onset_bias_s": float(np.median(errors)) if errors else float("nan"), "seconds": elapsed,
+        "audio_seconds": len(y) / sr}
+
+
+def print_world(rows: list[dict]) -> dict:
+    """Means per family, per instrument (melodies) and per condition; pooled RTF."""
+    out = {}
+    for key in ("family", "instrument", "condition"):
+        print(f"\n{key:24s} {'takes':>5s} {'onset F':>8s} {'min':>6s} {'on+off F':>9s} {'bias ms':>8s} {'RTF':>6s}")
+        groups = {}
+        for r in rows:
+            if key != "instrument" or r["family"] == "melody":
+                groups.setdefault(r[key], []).append(r)
+        for name, group in sorted(groups.items()):
+            line = {"takes": len(group), "onset_f": float(np.mean([r["onset_f"] for r in group])),
+                    "min_onset_f": float(np.min([r["onset_f"] for r in group])),
+                    "onset_offset_f": float(np.mean([r["onset_offset_f"] for r in group])),
+                    "onset_bias_ms": 1000 * float(np.nanmedian([r["onset_bias_s"] for r in group])),
+                    "rtf": sum(r["seconds"] for r in group) / sum(r["audio_seconds"] for r in group)}
+            out[f"{key}:{name}"] = line
+            print(f"{name:24s} {line['takes']:5d} {line['onset_f']:8.3f} {line['min_onset_f']:6.3f}"
+                  f" {line['onset_offset_f']:9.3f} {line['onset_bias_ms']:8.1f} {line['rtf']:6.3f}", flush=True)
+    return out
+
+
+def world_section(folder: Path, split: str) -> dict:
+    """Blind figures on the world corpus (fixtures/build_world.py), one split."""
+    takes = [t for t in json.loads((folder / "manifest.json").read_text())["takes"]
+             if split == "all" or t["split"] == split]
+    print(f"world corpus: {len(takes)} takes ({split}), blind", flush=True)
+    rows = [run_world_take(folder, t) for t in takes]
+    return {"split": split, "takes": rows, "groups": print_world(rows)}
+
+
 # ----------------------------------------------------------------------------- main
 
 
@@ -481,6 +542,8 @@ def main(argv=None) -> int:
                         help="accuracy on another corpus folder with the same layout, e.g. the large one built by "
                              "fixtures/build_corpus.py --large --out DIR (extra tuning material)")
     parser.add_argument("--speed", action="store_true", help="add the speed section (several minutes)")
+    parser.add_argument("--world-accuracy", action="store_true",
+                        help="with --world DIR: blind figures per family, instrument and condition (issue #20)")
     parser.add_argument("--engine-only", action="store_true",
                         help="run only the engine part of the speed section (engine vs scikit-learn, FLOP rate)")
     parser.add_argument("--memory-only", action="store_true",
@@ -566,6 +629,8 @@ def main(argv=None) -> int:
           f" {whole['informed']['rtf']:.3f}; {time.perf_counter() - t_all:.0f} s", flush=True)
     report = {"machine": machine, "split": args.split, "cold_start_seconds": cold, "pieces": rows,
               "categories": summary}
+    if args.world is not None and args.world_accuracy:
+        report["world"] = world_section(args.world, args.split)
     if args.rooms:
         report["rooms"] = _rooms_section(args)
     if args.speed:

@@ -26,7 +26,10 @@ from .settings import (DEFAULT_SETTINGS, MELODIC_SETTINGS, POLYPHONIC_SETTINGS, 
                        TranscriptionSettings, settings_for)
 from .tracking import activations_to_notes, pitch_novelty, suppress_harmonic_ghosts
 
-__all__ = ["TranscriptionSettings", "TrackingSettings", "Transcription", "transcribe", "settings_for", "noise_templates",
+#: Instrument families whose polyphonic presets may play one line (guitar, harp, mallets).
+LINE_FAMILIES = ("guitar", "chromatic percussion")
+
+__all__ = ["plays_one_line", "TranscriptionSettings", "TrackingSettings", "Transcription", "transcribe", "settings_for", "noise_templates",
            "DEFAULT_SETTINGS", "POLYPHONIC_SETTINGS", "MELODIC_SETTINGS", "normalize_spectrogram", "onset_exemption",
            "track_notes", "initial_dictionary"]
 
@@ -149,6 +152,38 @@ def _factorize(V: np.ndarray, initial: Dictionary, settings: TranscriptionSettin
     return final, H_full[:K], first.H[:K]
 
 
+def plays_one_line(notes: list[Note], *, window: float, max_share: float) -> bool:
+    """True when at most ``max_share`` of the notes start within ``window`` seconds of another note
+    that is not on one of its low partials (12, 19, 24 semitones: a ringing string's overtones)."""
+    if len(notes) < 4:
+        return False
+    onsets = np.array([n.onset for n in notes])
+    together = 0
+    for i, n in enumerate(notes):
+        near = np.nonzero(np.abs(onsets - n.onset) <= window)[0]
+        if any(abs(notes[j].pitch - n.pitch) not in (0, 12, 19, 24) for j in near if j != i):
+            together += 1
+    return together <= max_share * len(notes)
+
+
+def _tracked(H, V, dictionary, frame_times, settings, preset, part, melodic) -> list[Note]:
+    """Draft notes, polyphonic or melodic (see :func:`transcribe`, ``melodic``).
+
+    A plucked line keeps its preset's tracking levels (its attacks and decays are a plucked
+    string's) and gains the melodic decoding only: the bowed and blown melodic levels lost
+    onsets on the tuning split's clean guitar line."""
+    line_candidate = preset.polyphonic and preset.family in LINE_FAMILIES
+    if melodic is None and line_candidate and part is None:
+        notes = _tracked(H, V, dictionary, frame_times, settings, preset, part, False)
+        melodic = plays_one_line(notes, window=settings.chord_window, max_share=settings.chord_share)
+        if not melodic:
+            return notes
+    novelty = pitch_novelty(V, dictionary.W) if settings.use_novelty else None
+    polyphonic = preset.polyphonic and not melodic
+    return track_notes(H, dictionary.pitches, frame_times, settings=settings, polyphonic=polyphonic, part=part,
+                       novelty=novelty)
+
+
 def transcribe(
     y: np.ndarray,
     sr: int = ANALYSIS_SR,
@@ -161,6 +196,7 @@ def transcribe(
     spectrogram: Spectrogram | None = None,
     progress: Callable[[str], None] | None = None,
     pitches: np.ndarray | None = None,
+    melodic: bool | None = None,
 ) -> Transcription:
     """Transcribe a mono signal into note events (blind, or guided by the part's prior).
 
@@ -187,6 +223,11 @@ def transcribe(
         Called with a short stage description.
     pitches : np.ndarray, optional
         MIDI pitches of the templates (default: the instrument's range).
+    melodic : bool, optional
+        True tracks one note at a time (melodic decoding), False as the preset says. None
+        (default): without a part, a plucked or struck line (guitar, harp, mallets) whose
+        polyphonic draft seldom starts two notes together (:func:`plays_one_line`) is tracked
+        melodically, so a ringing string's overtones do not become notes.
 
     Returns
     -------
@@ -215,8 +256,6 @@ def transcribe(
     timings["factorization"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     say("note tracking")
-    novelty = pitch_novelty(V, final.W) if settings.use_novelty else None
-    notes = track_notes(H, final.pitches, spectrogram.frame_times, settings=settings, polyphonic=preset.polyphonic,
-                        part=part, novelty=novelty)
+    notes = _tracked(H, V, final, spectrogram.frame_times, settings, preset, part, melodic)
     timings["tracking"] = time.perf_counter() - t0
     return Transcription(notes, spectrogram, final, initial, H, H_first, preset, timings)

@@ -187,6 +187,10 @@ class TranscriptionSettings:
     ghost_ratio : float
         A note on the 2nd-4th partial of a note starting with it is dropped when quieter than
         this times it (0: no test; :func:`takescribe.transcription.tracking.suppress_harmonic_ghosts`).
+    chord_window, chord_share : float
+        A plucked or struck take is one line (tracked melodically) when at most ``chord_share``
+        of its polyphonic draft's notes start within ``chord_window`` seconds of another note
+        not on their low partials (:func:`takescribe.transcription.blind.plays_one_line`).
     tracking : TrackingSettings
     """
 
@@ -205,6 +209,10 @@ class TranscriptionSettings:
     noise_templates: int = 3
     use_novelty: bool = False
     ghost_ratio: float = 0.0
+    # chords start their notes within a few tens of milliseconds of each other
+    chord_window: float = 0.05
+    # a line may have an odd double stop; the tuning split's piano takes start >= 0.34 of notes together
+    chord_share: float = 0.2
     tracking: TrackingSettings = field(default_factory=TrackingSettings)
 
     def with_tracking(self, **changes) -> "TranscriptionSettings":
