@@ -6,7 +6,7 @@ decoders (nothing else to install). The decoded samples go to an anonymous tempo
 (no name on disk, gone when closed) as 32-bit float Sony Wave64, which
 :func:`takescribe.audio.load.load_audio` then reads like any other file, block by block and
 with all its checks. Containers no decoder here is meant for (WebM/Matroska, AMR, Windows
-Media, video files) are refused with an error that names the format.
+Media, film containers) are refused with an error that names the format.
 
 Conventions
 -----------
