@@ -91,7 +91,7 @@ def test_a_teacher_uses_the_desk_from_piece_to_removal(tmp_path, browser):
                                      for e in d.find_elements(By.CSS_SELECTOR, "[data-job] .bar i")), timeout=60)
         shot("bring-in-running")
         _wait(browser, lambda d: all(e.get_attribute("data-state") == "done"
-                                     for e in d.find_elements(By.CSS_SELECTOR, "[data-job]")), timeout=600)
+                                     for e in d.find_elements(By.CSS_SELECTOR, "[data-job]")), timeout=240)
         shot("bring-in-finished")
 
         browser.find_elements(By.CSS_SELECTOR, "[data-job] a.open")[0].click()

@@ -39,8 +39,6 @@ HELDOUT = FIXTURES / "corpus" / "heldout"
 TAKE = HELDOUT / "adverse_detune445_arpeggios.flac"  # 5.8 s, with its part
 PART = HELDOUT / "adverse_detune445_arpeggios.musicxml"
 OTHER = HELDOUT / "adverse_fast_altosax_jig.flac"  # 6.9 s, no part in the batch
-# music21 gives each <score-instrument> a random id; the ids are not content
-_RANDOM_IDS = re.compile(rb'id="I[0-9a-f]{32}"')
 
 
 def _args(command: str, work: Path, *, jobs: str = "1") -> list[str]:
@@ -62,8 +60,8 @@ def _workspace(root: Path) -> Path:
 
 
 def _files(folder: Path) -> dict[str, bytes]:
-    """Every file under ``folder`` (hidden ones too), random music21 ids blanked."""
-    return {p.relative_to(folder).as_posix(): _RANDOM_IDS.sub(b'id="I"', p.read_bytes())
+    """Every file under ``folder`` (hidden ones too), byte for byte."""
+    return {p.relative_to(folder).as_posix(): p.read_bytes()
             for p in sorted(folder.rglob("*")) if p.is_file()}
 
 

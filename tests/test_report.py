@@ -324,6 +324,26 @@ def test_long_take_is_encoded_block_by_block():
     assert abs(len(decoded) / rate - 5.0) < 0.03
 
 
+def test_the_same_take_gives_the_same_embedded_bytes():
+    # libsndfile draws each Ogg stream's serial at random; the page rewrites it (RFC 3533 page
+    # layout). The CRC is checked twice outside the project: libogg (through libsndfile) drops a
+    # page whose CRC is wrong, and the CRC of "123456789" is reveng's CRC-32/CKSUM check value
+    # 0x765E7680 without its final XOR (Ogg uses no final XOR; value from memory of the catalogue).
+    from takescribe.report.media import _ogg_crc, encode_take
+
+    assert _ogg_crc(b"123456789") == 0x765E7680 ^ 0xFFFFFFFF
+    y = _tone_take(3.0)
+    first, second = encode_take(y, 22050), encode_take(y, 22050)
+    assert first.data == second.data
+    decoded, rate = sf.read(io.BytesIO(first.data))
+    assert abs(len(decoded) / rate - 3.0) < 0.03
+    broken = bytearray(first.data)
+    last_page = bytes(broken).rfind(b"OggS")
+    broken[last_page + 22] ^= 0xFF  # the last page's CRC, wrong
+    shorter, _ = sf.read(io.BytesIO(bytes(broken)))
+    assert len(shorter) < len(decoded)
+
+
 # Colour-vision deficiency simulation, severity 1.0, on linear RGB: G. M. Machado, M. M. Oliveira
 # and L. A. F. Fernandes, "A physiologically-based model for simulation of color vision
 # deficiency", IEEE TVCG 15(6), 2009 (matrices from memory of the paper's table).

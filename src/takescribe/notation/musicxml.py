@@ -30,7 +30,7 @@ from .grid import beat_of
 from .model import Notation, QuantizedNote
 from .spelling import spell_pitch, tonic_name
 
-__all__ = ["to_music21", "musicxml_string", "write_musicxml", "BLOCK_BARS"]
+__all__ = ["to_music21", "musicxml_string", "write_musicxml", "stable_ids", "BLOCK_BARS"]
 
 #: Bars built and exported at a time: a block's music21 objects are a few MB at most.
 BLOCK_BARS = 64
@@ -248,11 +248,24 @@ def to_music21(notation: Notation, *, concert_pitch: bool = False, bar_range: tu
     return score
 
 
+_RANDOM_ID = re.compile(r'id="(I[0-9a-f]{32})"')
+
+
+def stable_ids(text: str) -> str:
+    """music21's random instrument ids (``I`` + 32 hex digits) renamed ``I1``, ``I2``... in order
+    of first appearance, every reference to one id renamed alike: the same notation gives the
+    same bytes."""
+    names: dict[str, str] = {}
+    for found in _RANDOM_ID.findall(text):
+        names.setdefault(found, f"I{len(names) + 1}")
+    return re.sub(r"\bI[0-9a-f]{32}\b", lambda m: names.get(m.group(0), m.group(0)), text)
+
+
 def _export(score, composer: str) -> str:
     """music21's MusicXML text of a score, without the placeholder composer it adds when none is set."""
     from music21.musicxml.m21ToXml import GeneralObjectExporter
 
-    text = GeneralObjectExporter(score).parse().decode("utf-8")
+    text = stable_ids(GeneralObjectExporter(score).parse().decode("utf-8"))
     if not composer:
         text = re.sub(r'\s*<creator type="composer">Music21</creator>', "", text, count=1)
     return text

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..comparison.compare import KINDS, Comparison, pitch_name
+from ..notation.musicxml import stable_ids
 from .styles import KIND_STYLES, LISTEN_STYLE
 
 __all__ = ["Annotated", "annotate", "annotate_musicxml", "is_uncertain", "label_of"]
@@ -91,7 +92,7 @@ def annotate(comparison: Comparison, reference: Any, written: Any = None, *, inc
     note_ids = _assign_ids(index, notes, reference)
     _mark_notes(comparison, reference, index, notes, include_uncertain=include_uncertain)
     _mark_directions(comparison, reference, score, include_uncertain=include_uncertain)
-    data = musicxml.m21ToXml.GeneralObjectExporter(score).parse()
+    data = stable_ids(musicxml.m21ToXml.GeneralObjectExporter(score).parse().decode("utf-8")).encode("utf-8")
     return Annotated(data, note_ids)
 
 

@@ -50,7 +50,7 @@ def engrave_svg(musicxml: bytes, *, settings: EngraveSettings | None = None, id_
         "pageWidth": settings.page_width, "pageHeight": 60000, "adjustPageHeight": True,
         "scale": settings.scale, "breaks": "auto", "svgViewBox": True, "header": "none", "footer": "none",
         "mnumInterval": 1, "svgAdditionalAttribute": ["measure@n"], "lyricSize": settings.lyric_size,
-        "svgRemoveXlink": True,
+        "svgRemoveXlink": True, "xmlIdSeed": 1,  # the same part gives the same SVG, ids included
     })
     text = musicxml.decode("utf-8") if isinstance(musicxml, (bytes, bytearray)) else str(musicxml)
     if not toolkit.loadData(text):

@@ -11,6 +11,10 @@ Conventions
   minute the page may take. Both Chromium and Firefox play it from a ``data:`` URI.
 - Where libsndfile has no Opus encoder, Ogg Vorbis at 16 kHz is used instead; where it has
   neither, 8 kHz 16-bit WAV, with a warning (about 1 MB a minute).
+- The same take gives the same bytes: libsndfile draws each Ogg stream's serial number at
+  random, so every page's serial is set to :attr:`EmbedSettings.ogg_serial` and its CRC
+  recomputed (page layout and CRC: RFC 3533, sections 6 and 6's "CRC_checksum" field; the
+  CRC-32 of polynomial 0x04C11DB7, unreflected, initial value and final XOR 0).
 """
 
 from __future__ import annotations
@@ -21,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["EmbedSettings", "EmbeddedAudio", "encode_take"]
+__all__ = ["EmbedSettings", "EmbeddedAudio", "encode_take", "with_ogg_serial"]
 
 
 @dataclass(frozen=True)
@@ -35,10 +39,13 @@ class EmbedSettings:
         pitch, attack and tone of any instrument in a practice take.
     block_seconds : float
         Seconds resampled and encoded at a time (memory bound for long takes).
+    ogg_serial : int
+        Stream serial number written into every Ogg page (any fixed value; one stream).
     """
 
     rate: int = 24000
     block_seconds: float = 60.0
+    ogg_serial: int = 1
 
 
 @dataclass(frozen=True)
@@ -59,7 +66,8 @@ def encode_take(y: np.ndarray, sr: int, *, settings: EmbedSettings | None = None
     duration = len(y) / float(sr)
     for rate, subtype in ((settings.rate, "OPUS"), (16000, "VORBIS")):
         try:
-            return EmbeddedAudio("audio/ogg", _encode(y, sr, rate, "OGG", subtype, settings.block_seconds), duration)
+            data = _encode(y, sr, rate, "OGG", subtype, settings.block_seconds)
+            return EmbeddedAudio("audio/ogg", with_ogg_serial(data, settings.ogg_serial), duration)
         except (RuntimeError, ValueError, TypeError) as exc:  # libsndfile without this codec
             reason = exc
     warnings.warn(f"Ogg encoding unavailable ({reason}); the report embeds an 8 kHz WAV copy of the take",
@@ -83,3 +91,47 @@ def _encode(y: np.ndarray, sr: int, rate: int, container: str, subtype: str, blo
             if len(block):
                 out.write(np.clip(block, -1.0, 1.0))
     return buffer.getvalue()
+
+
+def _ogg_crc_table() -> np.ndarray:
+    table = np.zeros(256, dtype=np.uint32)
+    for byte in range(256):
+        crc = byte << 24
+        for _ in range(8):
+            crc = ((crc << 1) ^ 0x04C11DB7) if crc & 0x80000000 else (crc << 1)
+        table[byte] = crc & 0xFFFFFFFF
+    return table
+
+
+_CRC_TABLE = _ogg_crc_table()
+
+
+def _ogg_crc(page: bytes) -> int:
+    crc = 0
+    table = _CRC_TABLE
+    for byte in page:
+        crc = ((crc << 8) & 0xFFFFFFFF) ^ int(table[((crc >> 24) ^ byte) & 0xFF])
+    return crc
+
+
+def with_ogg_serial(data: bytes, serial: int) -> bytes:
+    """The Ogg stream ``data`` with every page's serial number set to ``serial``.
+
+    Each page's CRC is recomputed. Raises ``ValueError`` if ``data`` is not a sequence of
+    whole Ogg pages (RFC 3533: capture pattern ``OggS``, 27-byte header, segment table).
+    """
+    out = bytearray(data)
+    position = 0
+    while position < len(out):
+        if out[position:position + 4] != b"OggS" or position + 27 > len(out):
+            raise ValueError(f"not an Ogg page at byte {position}")
+        segments = out[position + 26]
+        body = sum(out[position + 27:position + 27 + segments])
+        end = position + 27 + segments + body
+        if end > len(out):
+            raise ValueError(f"Ogg page at byte {position} runs past the end of the stream")
+        out[position + 14:position + 18] = int(serial).to_bytes(4, "little")
+        out[position + 22:position + 26] = b"\0\0\0\0"
+        out[position + 22:position + 26] = _ogg_crc(bytes(out[position:end])).to_bytes(4, "little")
+        position = end
+    return bytes(out)
