@@ -105,7 +105,7 @@ def test_a_teacher_uses_the_desk_from_piece_to_removal(tmp_path, browser):
         assert at == pytest.approx(max(start, 0.0), abs=0.6)   # the passage, from a second before
         shot("take")
         browser.find_element(By.ID, "open-report").click()
-        _wait(browser, lambda d: d.title.startswith("Practice report"))
+        _wait(browser, lambda d: d.title.endswith(": listening notes"))  # the report page (report/page.py)
         shot("report")
 
         browser.back()
