@@ -99,7 +99,7 @@ class AudioWarning(TakescribeWarning):
 
 
 class ScoreWarning(TakescribeWarning):
-    """The part can be used, but some of it was skipped or interpreted (ornaments, unpitched notes)."""
+    """A part or note file can be used, but some of it was skipped or interpreted (ornaments, percussion)."""
 
 
 class AlignmentWarning(TakescribeWarning):

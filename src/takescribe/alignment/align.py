@@ -86,6 +86,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from ..audio.load import validate_audio
+from ..errors import AlignmentWarning  # re-exported: its home before the warning tree
 from ..reference.part import Reference, validate_reference
 from .dtw import band_from_path, dtw, pool
 from .features import _default_hop, _render_reference, reference_features, take_features  # noqa: F401
@@ -111,10 +112,6 @@ UNALIGNED_COST = SETTINGS.unaligned_cost
 SKIP_COST = SETTINGS.skip_cost
 
 
-
-
-class AlignmentWarning(UserWarning):
-    """The take may not be a performance of the reference part (low alignment confidence)."""
 
 
 @dataclass(frozen=True, slots=True)

@@ -35,7 +35,7 @@ one-line message naming the file, the problem and what to do: missing path,
 folder, unreadable file, empty file, truncated or damaged WAV/FLAC/OGG, a MIDI,
 MusicXML, ZIP or text file given as audio, NaN or infinite samples, a take shorter
 than :data:`MIN_DURATION` seconds. Problems that still leave a usable signal are
-:class:`TakescribeWarning` warnings: silence, heavy clipping, DC offset (removed),
+:class:`~takescribe.errors.AudioWarning` warnings: silence, heavy clipping, DC offset (removed),
 and a sample rate too low to hold the top of the piano.
 """
 
@@ -56,7 +56,8 @@ import numpy as np
 import soundfile as sf
 import soxr
 
-from ..errors import AudioError, InputError
+from ..errors import AudioError, AudioWarning, InputError
+from ..errors import TakescribeWarning  # noqa: F401 - re-exported: the name this module gave its warnings before the tree
 from .decode import SUPPORTED_FORMATS, decoded_format, open_decoded, refused_format
 
 __all__ = [
@@ -115,10 +116,6 @@ _AUDIO_MAGIC = (
     (b"ID3", "MP3"),
     (b"NIST_1A", "NIST"),
 )
-
-
-class TakescribeWarning(UserWarning):
-    """A problem with an input that still leaves a usable result (silence, clipping...)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -298,7 +295,7 @@ def load_audio(
 
     Warns
     -----
-    TakescribeWarning
+    AudioWarning
         Silence, heavy clipping, DC offset (removed), or a sample rate too low to
         hold every piano pitch.
 
@@ -892,4 +889,4 @@ def _warn_about_content(path: Path, info: AudioInfo, stats: _ReadStats, *, sr: i
 
 def _warn(message: str, *, stacklevel: int = 4) -> None:
     # stacklevel 4: _warn -> _warn_about_content -> load_audio -> caller
-    warnings.warn(TakescribeWarning(message), stacklevel=stacklevel)
+    warnings.warn(message, AudioWarning, stacklevel=stacklevel)

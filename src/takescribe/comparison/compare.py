@@ -77,8 +77,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..audio.load import TakescribeWarning
-from ..errors import InputError
+from ..errors import ComparisonWarning, InputError
 from ..notes import Note, validate_notes
 from .builders import (
     Collector,
@@ -239,9 +238,9 @@ def compare_notes(
     n_ref, n_played = len(part.onsets), len(played)
     if n_played == 0:
         warnings.warn("no notes were heard in the take: every note of the part is reported missed",
-                      TakescribeWarning, stacklevel=2)
+                      ComparisonWarning, stacklevel=2)
     if n_ref == 0:
-        warnings.warn("the part has no notes: every played note is reported extra", TakescribeWarning, stacklevel=2)
+        warnings.warn("the part has no notes: every played note is reported extra", ComparisonWarning, stacklevel=2)
     take = _Take(np.array([p.onset for p in played], dtype=float), np.array([p.offset for p in played], dtype=float),
                  np.array([p.pitch for p in played], dtype=int))
     expected0 = to_take(part.onsets) if n_ref else np.zeros(0)

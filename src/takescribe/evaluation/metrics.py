@@ -62,6 +62,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import EvaluationWarning
 from .matching import (  # noqa: F401  (the matching names stay importable from here)
     N_DECIMALS,
     as_note_arrays,
@@ -217,7 +218,7 @@ def note_scores(
 
 def _warn_empty(n_ref: int, n_est: int) -> None:
     which = " and ".join(s for s, n in (("reference", n_ref), ("estimate", n_est)) if n == 0)
-    warnings.warn(f"{which} notes are empty; scores are 0", UserWarning, stacklevel=3)
+    warnings.warn(f"{which} notes are empty; scores are 0", EvaluationWarning, stacklevel=3)
 
 
 def _frame_index(times: np.ndarray, hop: float) -> np.ndarray:
@@ -377,7 +378,7 @@ def evaluate_notes(ref_notes, est_notes, *, hop: float = 0.01) -> dict[str, floa
         frame = frame_scores(ref, est, hop=hop)
     # one warning for the caller, not three
     if caught:
-        warnings.warn(str(caught[0].message), UserWarning, stacklevel=2)
+        warnings.warn(str(caught[0].message), EvaluationWarning, stacklevel=2)
     for prefix, scores in (("onset", onset), ("onset_offset", onset_offset)):
         out[f"{prefix}.precision"] = scores.precision
         out[f"{prefix}.recall"] = scores.recall

@@ -73,7 +73,7 @@ import mido
 import warnings
 
 from .. import safeio
-from ..errors import InputError, NoteListError, TakescribeWarning
+from ..errors import InputError, NoteListError, ScoreWarning
 from ..limits import check_note_count, check_span
 from ..notes import Note, sort_notes, validate_notes
 
@@ -552,11 +552,11 @@ def pair_notes(events: Sequence[tuple[int, mido.Message]], *, end_tick: int | No
 def warn_paired(path, percussion: int, unreleased: int) -> None:
     """The warnings of :func:`pair_notes`' two departures from a plain reading."""
     if percussion:
-        warnings.warn(f"{path}: {percussion} notes on channel 10 (General MIDI percussion) left out", TakescribeWarning,
+        warnings.warn(f"{path}: {percussion} notes on channel 10 (General MIDI percussion) left out", ScoreWarning,
                       stacklevel=3)
     if unreleased:
         warnings.warn(f"{path}: {unreleased} notes are never released; they end where their track ends",
-                      TakescribeWarning, stacklevel=3)
+                      ScoreWarning, stacklevel=3)
 
 
 def check_midi_span(path, midi: mido.MidiFile, tracks, tempo_maps) -> None:

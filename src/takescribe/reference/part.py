@@ -50,7 +50,7 @@ from typing import Sequence
 
 import numpy as np
 
-from ..errors import ScoreError
+from ..errors import ScoreError, ScoreWarning  # ScoreWarning re-exported: its home before the warning tree
 from ..export.midi import pair_notes, warn_paired
 from ..limits import LIMITS, check_note_count, check_span
 from ..notes import Note
@@ -84,10 +84,6 @@ MIDI_SUFFIXES = (".mid", ".midi")
 _EPS = 1e-9
 _SHARP_NAMES = ("C", "C#", "D", "D#", "E", "F", "F#", "G", "G#", "A", "A#", "B")
 _FLAT_NAMES = ("C", "Db", "D", "Eb", "E", "F", "Gb", "G", "Ab", "A", "Bb", "B")
-
-
-class ScoreWarning(UserWarning):
-    """Something in a reference part was guessed or simplified (the part is still usable)."""
 
 
 @dataclass(frozen=True, slots=True)

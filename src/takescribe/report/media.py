@@ -25,6 +25,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import ReportWarning
+
 __all__ = ["EmbedSettings", "EmbeddedAudio", "encode_take", "with_ogg_serial"]
 
 
@@ -71,7 +73,7 @@ def encode_take(y: np.ndarray, sr: int, *, settings: EmbedSettings | None = None
         except (RuntimeError, ValueError, TypeError) as exc:  # libsndfile without this codec
             reason = exc
     warnings.warn(f"Ogg encoding unavailable ({reason}); the report embeds an 8 kHz WAV copy of the take",
-                  stacklevel=2)
+                  ReportWarning, stacklevel=2)
     return EmbeddedAudio("audio/wav", _encode(y, sr, 8000, "WAV", "PCM_16", settings.block_seconds), duration)
 
 

@@ -24,7 +24,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from ..comparison.compare import Comparison
-from ..errors import InputError, OutputError
+from ..errors import InputError, OutputError, ReportWarning
 from ..notes import Note
 from ..safeio import ensure_folder, write_bytes, write_text
 from .annotate import annotate, annotate_musicxml
@@ -135,5 +135,5 @@ def _engravings(comparison, reference, written, musicxml: bytes) -> list[str]:
         return svgs
     except (ValueError, RuntimeError) as exc:  # verovio refused the file: the piano roll still shows the part
         warnings.warn(f"the part could not be engraved for the report ({exc}); the page shows the piano roll only",
-                      stacklevel=3)
+                      ReportWarning, stacklevel=3)
         return []

@@ -16,6 +16,7 @@ from typing import Callable
 
 import numpy as np
 
+from ..errors import AudioWarning
 from ..features.spectrogram import ANALYSIS_SR, Spectrogram, compute_spectrogram
 from ..notes import Note
 from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
@@ -247,7 +248,7 @@ def transcribe(
         part = part.rows(np.searchsorted(np.asarray(pitches), initial.pitches))
     V, _ = normalize_spectrogram(spectrogram.V)
     if not np.any(V):
-        warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
+        warnings.warn("the take is silent: the draft has no notes", AudioWarning, stacklevel=2)
         empty = np.zeros((initial.n_pitches, spectrogram.n_frames), np.float32)
         return Transcription([], spectrogram, initial, initial, empty, empty, preset, timings)
     t0 = time.perf_counter()

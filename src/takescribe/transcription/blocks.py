@@ -60,7 +60,7 @@ from typing import Callable
 import numpy as np
 
 from ..audio.load import release_samples
-from ..errors import InputError
+from ..errors import AudioWarning, InputError
 from ..features.spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
 from ..notes import Note, sort_notes
 from .blind import Transcription, initial_dictionary, noise_templates, track_notes
@@ -409,7 +409,7 @@ def transcribe_long(
         scan = _first_pass(plan, dictionary, timings)
         scale = scan.total / max(n_frames, 1)
         if scale <= 0:
-            warnings.warn("the take is silent: the draft has no notes", UserWarning, stacklevel=2)
+            warnings.warn("the take is silent: the draft has no notes", AudioWarning, stacklevel=2)
             return Transcription([], None, scan.initial, scan.initial, None, None, preset, timings)
         inv_scale = np.float32(1.0 / scale)
         t0 = time.perf_counter()
