@@ -37,7 +37,7 @@ from typing import Sequence
 
 from .. import safeio
 from ..errors import InputError, NoteListError
-from ..export.midi import read_midi_notes
+from ..midifile import read_midi_notes
 from ..limits import check_note_count, check_span
 from ..notes import Note, sort_notes, validate_notes
 

@@ -51,7 +51,7 @@ from typing import Sequence
 import numpy as np
 
 from ..errors import ScoreError, ScoreWarning  # ScoreWarning re-exported: its home before the warning tree
-from ..export.midi import pair_notes, warn_paired
+from ..midifile import pair_notes, warn_paired
 from ..limits import LIMITS, check_note_count, check_span
 from ..notes import Note
 
@@ -871,7 +871,7 @@ def _midi_parts(mid, path: Path) -> tuple[list[_RawPart], list, list, int, str |
                 continue
             if msg.type == "program_change" and program is None and msg.channel != 9:
                 program = int(msg.program)
-        paired = pair_notes(events)  # the one MIDI note reader (takescribe.export.midi, Conventions)
+        paired = pair_notes(events)  # the one MIDI note reader (takescribe.midifile, Conventions)
         warn_paired(path, paired.percussion, paired.unreleased)
         spans = [(s, e, pitch, c) for s, e, c, pitch, _v in paired.spans if e > s]
         parts.append(_RawPart(
