@@ -22,6 +22,7 @@ from ..notes import Note
 from .dictionary import Dictionary, adapt_dictionary, harmonic_dictionary, validate_dictionary
 from .instruments import Instrument, resolve_instrument
 from .nmf import decompose
+from .octaves import correct_subharmonics
 from .prior import PartPrior
 from .settings import (DEFAULT_SETTINGS, MELODIC_SETTINGS, POLYPHONIC_SETTINGS, TrackingSettings,  # noqa: F401
                        TranscriptionSettings, settings_for)
@@ -181,8 +182,12 @@ def _tracked(H, V, dictionary, frame_times, settings, preset, part, melodic) -> 
             return notes
     novelty = pitch_novelty(V, dictionary.W) if settings.use_novelty else None
     polyphonic = preset.polyphonic and not melodic
-    return track_notes(H, dictionary.pitches, frame_times, settings=settings, polyphonic=polyphonic, part=part,
-                       novelty=novelty)
+    notes = track_notes(H, dictionary.pitches, frame_times, settings=settings, polyphonic=polyphonic, part=part,
+                        novelty=novelty)
+    if polyphonic or part is not None:
+        return notes
+    return correct_subharmonics(notes, V, dictionary.frequencies, frame_times, lowest=int(dictionary.pitches.min()),
+                                ratio=settings.subharmonic_ratio, contrast=settings.subharmonic_contrast)
 
 
 def transcribe(

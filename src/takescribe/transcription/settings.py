@@ -191,6 +191,10 @@ class TranscriptionSettings:
         A plucked or struck take is one line (tracked melodically) when at most ``chord_share``
         of its polyphonic draft's notes start within ``chord_window`` seconds of another note
         not on their low partials (:func:`takescribe.transcription.blind.plays_one_line`).
+    subharmonic_ratio, subharmonic_contrast : float
+        One-line drafts: a note is moved down to the played note it is a partial of when that
+        note's own partials hold this share of its energy and this many times the other
+        candidates' (:func:`takescribe.transcription.octaves.correct_subharmonics`; 0: no check).
     tracking : TrackingSettings
     """
 
@@ -213,6 +217,10 @@ class TranscriptionSettings:
     chord_window: float = 0.05
     # a line may have an odd double stop; the tuning split's piano takes start >= 0.34 of notes together
     chord_share: float = 0.2
+    # tuning split (world melodies): right notes read <= 0.12 at the 95th percentile, notes on a partial >= 0.16
+    subharmonic_ratio: float = 0.2
+    # a ringing previous note or noise lifts every candidate alike: 3 kept 128 fixes, 5 wrong moves of 1,200
+    subharmonic_contrast: float = 3.0
     tracking: TrackingSettings = field(default_factory=TrackingSettings)
 
     def with_tracking(self, **changes) -> "TranscriptionSettings":
