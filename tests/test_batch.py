@@ -61,6 +61,51 @@ def test_local_run_transcribes_compares_and_reports_failures(folders, local_run)
     assert "broken.wav" in table and "1 failed" in table
 
 
+def test_every_take_gets_a_valid_musicxml_draft(folders, local_run, musicxml_schema):
+    from lxml import etree
+    from music21 import converter
+
+    root, _, _ = folders
+    for result in local_run.results:
+        if result.status != "done":
+            continue
+        path = root / "local" / Path(result.take).stem / "draft.musicxml"
+        # MusicXML 4.0 XSD (W3C Music Notation Community Group) accepts the draft
+        doc = etree.parse(str(path), etree.XMLParser(load_dtd=False, no_network=True, resolve_entities=False))
+        assert musicxml_schema.validate(doc), f"{path}: {musicxml_schema.error_log.last_error}"
+        # music21 reads back the pitches of the take's note list (one draft, two files); a note tied
+        # over a bar line is one note, and two onsets of one pitch on one grid slot are written once
+        written = [p.midi for n in converter.parse(str(path)).recurse().notes
+                   if n.tie is None or n.tie.type == "start" for p in n.pitches]
+        listed = [int(line.split()[2]) for line in (path.parent / "notes.txt").read_text().splitlines()[1:]]
+        assert sorted(set(written)) == sorted(set(listed)) and len(written) <= len(listed) == result.notes, path
+
+
+def test_a_take_without_part_or_instrument_is_said_to_be_piano(folders, local_run):
+    by_name = {Path(r.take).name: r for r in local_run.results}
+    assert by_name["adverse_detune445_arpeggios.flac"].remark is None  # its part names the instrument
+    for name in ("adverse_fast_altosax_jig.flac", "adverse_mixed_trumpet_reel.flac"):
+        assert "--instrument" in by_name[name].remark and "piano" in by_name[name].remark
+        assert f"note: {name}: no --instrument" in local_run.table()
+
+
+def test_instrument_option_names_the_draft_and_writes_it_transposed(folders, tmp_path, capsys):
+    from lxml import etree
+
+    _, takes, _ = folders
+    only = tmp_path / "takes"
+    only.mkdir()
+    shutil.copy(takes / "adverse_fast_altosax_jig.flac", only)
+    code = main(["batch", str(only), "-o", str(tmp_path / "out"), "--instrument", "alto sax", "--jobs", "1",
+                 "--quiet"])
+    out = capsys.readouterr().out
+    assert code == 0 and "no --instrument" not in out
+    doc = etree.parse(str(tmp_path / "out" / "adverse_fast_altosax_jig" / "draft.musicxml"))
+    assert "Sax" in doc.findtext(".//score-part/part-name")
+    # an E-flat alto saxophone sounds a major sixth below its written notes (common practice, no source)
+    assert doc.findtext(".//transpose/chromatic") == "-9"
+
+
 def test_resume_skips_finished_takes(folders, local_run, capsys):
     root, takes, scores = folders
     before = {k: p.stat().st_mtime_ns for k, p in _outputs(root / "local").items()}

@@ -111,7 +111,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", required=True, help="results folder, one subfolder per take (created if missing)")
     p.add_argument("--score-dir", dest="scores", metavar="DIR",
                    help="folder of parts: a part with the same name as a take is compared with it")
-    p.add_argument("--instrument", help="GM program number or name of every take (default: the part's, else piano)")
+    p.add_argument("--instrument", help="GM program number or name of every take (default: the part's; a take with"
+                   " neither is transcribed as piano, and the summary says so)")
     p.add_argument("--jobs", type=int, help="worker processes (default: the number of CPUs)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask distributed cluster (e.g. tcp://host:8786)")
     _add_common(p)

@@ -5,10 +5,14 @@ Method
 - The takes are the audio files directly inside ``input_dir`` (by suffix, see
   :data:`AUDIO_SUFFIXES`), in name order. A take's part is the file of ``score_dir``
   with the same stem and a score suffix (:data:`SCORE_SUFFIXES`, first match wins).
-- Each take gets its own folder ``output_dir/<stem>/`` holding ``draft.mid`` and
-  ``notes.txt`` (MAPS-style note list) and, with a part, the practice report of
-  :func:`takescribe.pipeline.compare_file` (:data:`takescribe.pipeline.REPORT_FILES`);
-  the draft then comes from the same score-informed transcription as the report.
+- Each take gets its own folder ``output_dir/<stem>/`` holding ``draft.mid`` (performed
+  timing), ``draft.musicxml`` (the notated draft), ``notes.txt`` (MAPS-style note list) and,
+  with a part, the practice report of :func:`takescribe.pipeline.compare_file`
+  (:data:`takescribe.pipeline.REPORT_FILES`); the drafts then come from the same
+  score-informed transcription as the report, and the MusicXML draft takes the part's bars and values.
+- **Instrument**: ``instrument`` (``--instrument``) for every take, else the part's. A take
+  with neither is transcribed with the piano's templates, and its result says so
+  (:attr:`TakeResult.remark`, printed under the summary table): never silently.
 - **All or nothing per take**: a take's folder is written as a staging folder
   beside it and renamed into place when complete (:func:`takescribe.safeio.staged_outputs`),
   so a take folder on disk always holds all its outputs.
@@ -48,7 +52,8 @@ import numpy as np
 from ..errors import EXIT_BAD_INPUT, EXIT_OK, InputError, Interrupted, TakescribeError
 from ..export.noteio import write_maps
 from ..interrupts import fault_point, handle_signals, in_worker, init_worker, job_running
-from ..jobs.pipeline import REPORT_FILES, compare_into, transcribe_into, write_draft_midi
+from ..jobs.pipeline import REPORT_FILES, compare_into, notate_take, transcribe_into, write_draft_midi
+from ..notation import write_musicxml
 from ..safeio import STAGING_PREFIX, clear_stale, ensure_folder, scratch_folder, staged_outputs, write_error
 
 __all__ = ["AUDIO_SUFFIXES", "SCORE_SUFFIXES", "TakeJob", "TakeResult", "BatchSummary", "find_takes", "run_batch",
@@ -56,7 +61,10 @@ __all__ = ["AUDIO_SUFFIXES", "SCORE_SUFFIXES", "TakeJob", "TakeResult", "BatchSu
 
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".oga", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".mxl", ".xml", ".mid", ".midi")
-DRAFT_FILES = ("draft.mid", "notes.txt")
+DRAFT_FILES = ("draft.mid", "notes.txt", "draft.musicxml")
+#: What a take with no instrument from the option or its part is said to be transcribed as.
+DEFAULT_INSTRUMENT_REMARK = ("no --instrument and no part naming one: transcribed as piano;"
+                             " pass --instrument if it is another instrument")
 #: Seconds to wait for a Dask scheduler before saying it cannot be reached.
 DASK_CONNECT_SECONDS = 4.0
 #: Seconds a stopped worker gets to remove its staging folder before it is killed.
@@ -115,6 +123,8 @@ class TakeResult:
     seconds : float
     error : str or None
     part : str or None
+    remark : str or None
+        Something the reader must know about a finished take (e.g. the instrument was assumed).
     """
 
     take: str
@@ -124,6 +134,7 @@ class TakeResult:
     seconds: float = 0.0
     error: str | None = None
     part: str | None = None
+    remark: str | None = None
 
 
 @dataclass(frozen=True)
@@ -168,6 +179,9 @@ class BatchSummary:
                      + f" in {self.seconds:.1f} s; outputs in {self.output_dir}")
         for r in self.failed:
             lines.append(f"failed: {Path(r.take).name}: {r.error}")
+        for r in self.results:
+            if r.remark:
+                lines.append(f"note: {Path(r.take).name}: {r.remark}")
         return "\n".join(lines)
 
 
@@ -242,8 +256,8 @@ def _stop_check(job: TakeJob):
     return check
 
 
-def _transcribe_and_compare(job: TakeJob) -> tuple[int, int | None]:
-    """The work of one take, all or nothing on disk; returns (notes in the draft, findings or None)."""
+def _transcribe_and_compare(job: TakeJob) -> tuple[int, int | None, str | None]:
+    """The work of one take, all or nothing on disk; returns (notes in the draft, findings or None, remark)."""
     present = [p for p in job.outputs if p.exists()]
     if present and not job.force:
         raise InputError(f"{job.folder}: holds only some of this take's outputs (an interrupted run?); remove"
@@ -251,16 +265,24 @@ def _transcribe_and_compare(job: TakeJob) -> tuple[int, int | None]:
     progress = _stop_check(job)
     with staged_outputs(force=job.force) as staged:
         folder = staged.folder(job.folder)
-        midi_path, notes_path = folder / DRAFT_FILES[0], folder / DRAFT_FILES[1]
+        midi_path, notes_path, xml_path = (folder / name for name in DRAFT_FILES)
         if job.part:
             out = compare_into(folder, job.take, job.part, instrument=job.instrument, progress=progress)
             fault_point("between-outputs")
-            write_draft_midi(midi_path, out.transcription)
+            notation = notate_take(out.transcription, job.take, reference=out.reference, alignment=out.alignment)
+            write_draft_midi(midi_path, out.transcription, notation=notation)
             write_maps(out.transcription.notes, notes_path)
-            return len(out.transcription.notes), len(out.comparison.findings)
-        out = transcribe_into(job.take, {midi_path: midi_path, notes_path: notes_path}, midi_path=midi_path,
-                              notes_path=notes_path, instrument=job.instrument, progress=progress)
-        return len(out.transcription.notes), None
+            write_musicxml(notation, xml_path)
+            assumed = job.instrument is None and getattr(out.reference, "midi_program", None) is None
+            return len(out.transcription.notes), len(out.comparison.findings), _remark(assumed)
+        staged = {path: path for path in (midi_path, notes_path, xml_path)}
+        out = transcribe_into(job.take, staged, midi_path=midi_path, notes_path=notes_path, musicxml_path=xml_path,
+                              instrument=job.instrument, progress=progress)
+        return len(out.transcription.notes), None, _remark(job.instrument is None)
+
+
+def _remark(assumed_instrument: bool) -> str | None:
+    return DEFAULT_INSTRUMENT_REMARK if assumed_instrument else None
 
 
 def process_take(job: TakeJob) -> TakeResult:
@@ -272,8 +294,8 @@ def process_take(job: TakeJob) -> TakeResult:
     start = time.perf_counter()
     try:
         with scratch_folder(), job_running(), _one_blas_thread():
-            notes, findings = _transcribe_and_compare(job)
-        return TakeResult(job.take, "done", notes, findings, time.perf_counter() - start, None, job.part)
+            notes, findings, remark = _transcribe_and_compare(job)
+        return TakeResult(job.take, "done", notes, findings, time.perf_counter() - start, None, job.part, remark)
     except Interrupted as exc:
         if in_worker():
             os._exit(exc.exit_code)
@@ -446,7 +468,8 @@ def run_batch(input_dir, output_dir, *, score_dir=None, jobs: int | None = None,
     progress : bool
         A progress bar on stderr.
     instrument : str or int, optional
-        Instrument of every take (default: the part's, else piano).
+        Instrument of every take (default: the part's, else piano, which the take's
+        result then states in its ``remark``).
 
     Returns
     -------

@@ -46,7 +46,7 @@ from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
 from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
 
 __all__ = ["TranscribeOutputs", "CompareOutputs", "compare_file", "compare_into", "compare_take", "transcribe_into", "REPORT_FILES", "transcribe_file", "transcribe_take", "evaluate_files", "learn_dictionary_file",
-           "load_take", "draft_midi_tracks", "write_draft_midi"]
+           "load_take", "notate_take", "draft_midi_tracks", "write_draft_midi"]
 
 
 # ----------------------------------------------------------------------------- file-level jobs
@@ -216,18 +216,11 @@ def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None,
     y, sr = load_take(take_path, progress=progress)
     result, alignment = transcribe_take(y, sr, instrument=preset, reference=reference, dictionary=dictionary,
                                         progress=progress, room=room)
-    notation = None
-    if musicxml_path is not None or quantized_midi or reference is not None or tempo or time_signature:
-        if progress:
-            progress("notation: meter, quantization, key, staves")
-        notation = notate(
-            result.notes, reference=reference, alignment=alignment,
-            onsets=onset_strength(y, sr) if reference is None else None,
-            instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
-            tempo=tempo, time_signature=time_signature, grid=grid,
-            measured_offsets=not result.instrument.decaying, title=Path(take_path).stem,
-            transposition=transposition,
-        )
+    # always notated: the MIDI draft's meter and tempo changes are the notation's (one tempo map)
+    if progress:
+        progress("notation: meter, quantization, key, staves")
+    notation = notate_take(result, take_path, y=y, sr=sr, reference=reference, alignment=alignment,
+                           tempo=tempo, time_signature=time_signature, grid=grid, transposition=transposition)
     written = []
     if midi_path is not None:
         write_draft_midi(staged[midi_path], result, notation=notation, midi_type=midi_type, quantized=quantized_midi)
@@ -241,6 +234,24 @@ def transcribe_into(take_path, staged: dict, *, midi_path=None, notes_path=None,
         write_musicxml(notation, staged[musicxml_path], concert_pitch=concert_pitch)
         written.append(Path(musicxml_path))
     return TranscribeOutputs(result, written, reference, alignment, notation)
+
+
+def notate_take(result: Transcription, take_path, *, y=None, sr=None, reference=None, alignment=None,
+                tempo: float | None = None, time_signature=None, grid: str | None = None,
+                transposition: int | None = None):
+    """The notated draft of a transcribed take (:func:`takescribe.notation.notate`).
+
+    With a part, the part gives meter, bars and written values; without one, the take's
+    onset evidence (from ``y``, ``sr``) gives the beat. The title falls back to the take's name.
+    """
+    onsets = onset_strength(y, sr) if reference is None and y is not None else None
+    return notate(
+        result.notes, reference=reference, alignment=alignment, onsets=onsets,
+        instrument_name=result.instrument.gm_name, midi_program=result.instrument.program,
+        tempo=tempo, time_signature=time_signature, grid=grid,
+        measured_offsets=not result.instrument.decaying, title=Path(take_path).stem,
+        transposition=transposition,
+    )
 
 
 def draft_midi_tracks(result: Transcription, *, notation=None, quantized: bool = False, grid=None):
