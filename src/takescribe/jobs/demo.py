@@ -39,7 +39,7 @@ from typing import Callable, Iterator
 
 from ..errors import InputError
 from ..notation import notate, write_musicxml
-from ..jobs.pipeline import REPORT_FILES, compare_file, load_take, write_draft_midi
+from ..jobs.pipeline import REPORT_FILES, compare_file, format_findings_counts, load_take, write_draft_midi
 from ..safeio import check_writable, ensure_folder
 
 __all__ = ["DEMO_STUDENTS", "DRAFT_FILES", "DemoStudent", "DemoResult", "run_demo", "demo_bundle",
@@ -221,12 +221,10 @@ def _run_student(source: Path, out: Path, entry: dict, *, force: bool,
 
 
 def format_demo_summary(result: DemoResult) -> str:
-    """A few lines for the terminal: per student, notes as written, findings per kind, the report."""
+    """A few lines for the terminal: per student, findings per kind (no grade-like figure) and the report."""
     lines = [f"Demo: two students of the {result.school} (an invented school; pieces written for the demo)."]
     for s in result.students:
-        found = ", ".join(f"{n} {kind.replace('_', ' ')}" for kind, n in s.counts.items()) or "no findings"
-        lines.append(f"- {s.student}, {s.instrument.lower()}, \"{s.piece}\": {s.notes_played_correctly} of "
-                     f"{s.notes_in_part} notes in the part played as written; {found}.")
+        lines.append(f"- {s.student}, {s.instrument.lower()}, \"{s.piece}\": {format_findings_counts(s.counts)}.")
         lines.append(f"  Open the report: {s.report_html}")
     lines.append(CAUTION)
     return "\n".join(lines)

@@ -46,7 +46,7 @@ from ..features.spectrogram import ANALYSIS_SR, compute_spectrogram
 from ..transcription.blind import Transcription, TranscriptionSettings, normalize_spectrogram, transcribe
 
 __all__ = ["TranscribeOutputs", "CompareOutputs", "compare_file", "compare_into", "compare_take", "transcribe_into", "REPORT_FILES", "transcribe_file", "transcribe_take", "evaluate_files", "learn_dictionary_file",
-           "load_take", "notate_take", "draft_midi_tracks", "write_draft_midi"]
+           "load_take", "notate_take", "format_findings_counts", "draft_midi_tracks", "write_draft_midi"]
 
 
 # ----------------------------------------------------------------------------- file-level jobs
@@ -462,12 +462,20 @@ def format_scores(scores: dict) -> str:
     return "\n".join(lines)
 
 
+def format_findings_counts(counts: dict) -> str:
+    """Findings by kind, in words: ``"3 findings: 2 wrong note, 1 late"`` (no share or score of any kind)."""
+    present = {kind: int(n) for kind, n in counts.items() if n}
+    if not present:
+        return "no findings"
+    total = sum(present.values())
+    kinds = ", ".join(f"{n} {kind.replace('_', ' ')}" for kind, n in present.items())
+    return f"{total} finding{'s' if total != 1 else ''}: {kinds}"
+
+
 def format_comparison_summary(outputs: CompareOutputs) -> str:
-    """A few lines for the terminal after ``compare``."""
-    summary = outputs.comparison.summary
-    counts = summary.get("counts", {})
-    found = ", ".join(f"{n} {k.replace('_', ' ')}" for k, n in counts.items() if n) or "no findings"
+    """A few lines for the terminal after ``compare``: findings by kind, where the report is, and
+    that findings are suggestions (no grade-like figure: a share of notes right would read as one)."""
+    counts = outputs.comparison.summary.get("counts", {})
     report = outputs.written.get("report.html")
-    return (f"{summary.get('notes_played_correctly', '?')} of {summary.get('notes_in_part', '?')} notes played as"
-            f" written; {found}.\nOpen the report: {report}\n"
-            "Findings are suggestions for a teacher's judgement, not a grade.")
+    return (f"{format_findings_counts(counts)}.\nOpen the report: {report}\n"
+            "Findings are suggestions for the teacher's judgement, not a grade.")
