@@ -21,6 +21,7 @@ import pytest
 import soundfile as sf
 
 from takescribe.audio import load as audio
+from takescribe.audio import probe
 from takescribe.audio.load import (
     release_samples,
     AudioInfo,
@@ -401,7 +402,8 @@ def test_unreadable_file_permission_denied(tmp_path, monkeypatch, clean_wav):
         raise PermissionError(13, "Permission denied", str(clean_wav))
 
     # root reads any file whatever its mode, so simulate the refusal at the open call
-    monkeypatch.setattr(audio, "open", refuse, raising=False)
+    # (of takescribe.audio.probe, which opens the take since the split of load.py)
+    monkeypatch.setattr(probe, "open", refuse, raising=False)
     with pytest.raises(AudioError, match=r"cannot be read \(permission denied\); make it readable") as excinfo:
         load_audio(clean_wav)
     assert str(excinfo.value).startswith(str(clean_wav))
