@@ -187,7 +187,8 @@ def _tracked(H, V, dictionary, frame_times, settings, preset, part, melodic) -> 
     if polyphonic or part is not None:
         return notes
     return correct_subharmonics(notes, V, dictionary.frequencies, frame_times, lowest=int(dictionary.pitches.min()),
-                                ratio=settings.subharmonic_ratio, contrast=settings.subharmonic_contrast)
+                                ratio=settings.subharmonic_ratio, contrast=settings.subharmonic_contrast,
+                                before=settings.subharmonic_before)
 
 
 def transcribe(

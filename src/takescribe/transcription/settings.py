@@ -195,6 +195,8 @@ class TranscriptionSettings:
         One-line drafts: a note is moved down to the played note it is a partial of when that
         note's own partials hold this share of its energy and this many times the other
         candidates' (:func:`takescribe.transcription.octaves.correct_subharmonics`; 0: no check).
+    subharmonic_before : float
+        Share of the spectrum just before the note (the previous note's tail) taken off first.
     tracking : TrackingSettings
     """
 
@@ -221,6 +223,8 @@ class TranscriptionSettings:
     subharmonic_ratio: float = 0.2
     # a ringing previous note or noise lifts every candidate alike: 3 kept 128 fixes, 5 wrong moves of 1,200
     subharmonic_contrast: float = 3.0
+    # half the previous note's tail off: the 5 wrong moves of room takes gone, the 128 fixes kept (1.0 lost one)
+    subharmonic_before: float = 0.5
     tracking: TrackingSettings = field(default_factory=TrackingSettings)
 
     def with_tracking(self, **changes) -> "TranscriptionSettings":
