@@ -20,7 +20,6 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from takescribe.audio import load as audio
 from takescribe.audio import probe
 from takescribe.audio.load import (
     release_samples,

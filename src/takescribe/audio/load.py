@@ -183,17 +183,7 @@ def load_audio(
     (dtype('float32'), (22050,), 22050)
     """
     sr = _check_rate_argument(sr)
-    if max_seconds is not None:
-        if isinstance(max_seconds, bool) or not isinstance(max_seconds, (int, float, np.integer, np.floating)):
-            raise TypeError(f"max_seconds must be a number of seconds or None, got {max_seconds!r}")
-        if not (math.isfinite(max_seconds) and max_seconds >= MIN_DURATION):
-            raise InputError(f"max_seconds must be at least {MIN_DURATION} s, got {max_seconds}")
-    if isinstance(block_frames, bool) or not isinstance(block_frames, (int, np.integer)) or block_frames < 1:
-        raise InputError(f"block_frames must be a positive integer, got {block_frames!r}")
-    if spill_seconds is not None and not (isinstance(spill_seconds, (int, float, np.integer, np.floating))
-                                          and not isinstance(spill_seconds, bool) and spill_seconds >= 0):
-        raise InputError(f"spill_seconds must be a number of seconds >= 0 or None, got {spill_seconds!r}")
-
+    _check_read_arguments(max_seconds=max_seconds, block_frames=block_frames, spill_seconds=spill_seconds)
     path = _check_path(path)
     with _open(path) as handle:
         info = _info_from(path, handle)
@@ -209,6 +199,20 @@ def load_audio(
     finally:
         if isinstance(y, _FileSink) and not y.file.closed:
             y.file.close()
+
+
+def _check_read_arguments(*, max_seconds, block_frames, spill_seconds) -> None:
+    """The reading options of :func:`load_audio`, checked before the file is opened."""
+    if max_seconds is not None:
+        if isinstance(max_seconds, bool) or not isinstance(max_seconds, (int, float, np.integer, np.floating)):
+            raise TypeError(f"max_seconds must be a number of seconds or None, got {max_seconds!r}")
+        if not (math.isfinite(max_seconds) and max_seconds >= MIN_DURATION):
+            raise InputError(f"max_seconds must be at least {MIN_DURATION} s, got {max_seconds}")
+    if isinstance(block_frames, bool) or not isinstance(block_frames, (int, np.integer)) or block_frames < 1:
+        raise InputError(f"block_frames must be a positive integer, got {block_frames!r}")
+    if spill_seconds is not None and not (isinstance(spill_seconds, (int, float, np.integer, np.floating))
+                                          and not isinstance(spill_seconds, bool) and spill_seconds >= 0):
+        raise InputError(f"spill_seconds must be a number of seconds >= 0 or None, got {spill_seconds!r}")
 
 
 def _checked(path: Path, y, info: AudioInfo, stats, *, n_wanted: int, sr: int) -> tuple[np.ndarray, int]:

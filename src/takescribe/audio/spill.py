@@ -148,21 +148,12 @@ def _read_resampled(
                 append(mono if stream is None else stream.resample_chunk(mono, last=False))
             if stream is not None:
                 append(stream.resample_chunk(np.zeros(0, dtype=np.float32), last=True))
-    except AudioError:
+    except (AudioError, sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
         if sink is not None:
             sink.file.close()
-        raise
-    except (sf.SoundFileError, RuntimeError, ValueError, OSError, EOFError) as exc:
-        if sink is not None:
-            sink.file.close()
-        if n_read == 0 and info.format == "FLAC" and _flac_total_samples(path) == 0:
-            raise AudioError(f"{path}: is empty: a valid FLAC file that holds no samples; record or export the take"
-                             " again") from exc
-        detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
-        raise AudioError(
-            f"{path}: damaged or truncated {info.format} file (decoding failed: {detail}); "
-            "copy or export the take again"
-        ) from exc
+        if isinstance(exc, AudioError):
+            raise
+        raise _decoding_error(path, info, n_read=n_read, exc=exc) from exc
 
     # match librosa.resample's length convention: ceil(n * sr / native_sr)
     n_final = math.ceil(n_read * sr / native_sr)
@@ -176,6 +167,18 @@ def _read_resampled(
     stats = _ReadStats(n_read=n_read, n_nonfinite=n_nonfinite, n_clipped=n_clipped,
                        n_samples=n_read * n_channels, peak=peak, mean=total / max(filled, 1), flat_tops=flat_tops)
     return (y if sink is None else sink), stats
+
+
+def _decoding_error(path: Path, info: AudioInfo, *, n_read: int, exc: BaseException) -> AudioError:
+    """What to tell the user when the decoder fails part way (an empty FLAC is not a damaged one)."""
+    if n_read == 0 and info.format == "FLAC" and _flac_total_samples(path) == 0:
+        return AudioError(f"{path}: is empty: a valid FLAC file that holds no samples; record or export the take"
+                          " again")
+    detail = str(exc).split(":")[-1].strip().rstrip(".") or type(exc).__name__
+    return AudioError(
+        f"{path}: damaged or truncated {info.format} file (decoding failed: {detail}); "
+        "copy or export the take again"
+    )
 
 
 def _flac_total_samples(path: Path) -> int | None:
