@@ -39,6 +39,9 @@ class SizeLimits:
     max_span_seconds: float = 3 * 3600.0
     #: evaluate's frame metrics on the 10 ms grid (about 1.1 GB per hour of span)
     max_frame_bytes: int = 2 * 1024**3
+    #: a longer take is spilled to a temporary file and dereverberated and transcribed in blocks,
+    #: so memory does not grow with the take
+    long_take_seconds: float = 150.0
 
 
 LIMITS = SizeLimits()

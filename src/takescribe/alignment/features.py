@@ -11,12 +11,13 @@ import scipy.sparse
 from scipy.ndimage import maximum_filter1d
 
 from ..audio.load import frames_segment, release_samples
+from ..pitch import PIANO_HIGHEST, PIANO_LOWEST
 from ..reference.part import Reference
 from .settings import SETTINGS
 
 __all__ = ["take_features", "reference_features", "LOWEST_PITCH", "HIGHEST_PITCH"]
 
-LOWEST_PITCH, HIGHEST_PITCH = 21, 108
+LOWEST_PITCH, HIGHEST_PITCH = PIANO_LOWEST, PIANO_HIGHEST
 
 
 def _default_hop(sr: int) -> int:

@@ -17,12 +17,13 @@ import numpy as np
 import soundfile as sf
 
 from ..errors import AudioError, InputError
+from ..pitch import PIANO_HIGHEST, midi_to_hz
 from .decode import SUPPORTED_FORMATS, decoded_format, open_decoded, refused_format
 
 #: Shortest take, in seconds, that takescribe analyses.
 MIN_DURATION = 0.5
-# Highest piano key, C8 = MIDI 108: 440 * 2**(39/12) Hz (ISO 16 tuning).
-_TOP_PIANO_HZ = 440.0 * 2.0 ** ((108 - 69) / 12)
+# Highest piano key, C8: 440 * 2**(39/12) Hz (ISO 16 tuning).
+_TOP_PIANO_HZ = float(midi_to_hz(PIANO_HIGHEST))
 # Header sample rates outside this range are treated as a damaged header.
 _MIN_NATIVE_SR = 1000
 _MAX_NATIVE_SR = 768_000

@@ -10,11 +10,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["ComparisonTuning", "TUNING", "PARTIAL_STEPS"]
+from ..pitch import PARTIAL_STEPS  # noqa: F401 - re-exported: where the partials sit above a note
 
-# semitones above a sounding note where its 2nd, 3rd and 4th partials lie (octave, twelfth,
-# double octave; harmonic series, common practice, no source)
-PARTIAL_STEPS = (12, 19, 24)
+__all__ = ["ComparisonTuning", "TUNING", "PARTIAL_STEPS"]
 
 
 @dataclass(frozen=True, slots=True)

@@ -66,6 +66,7 @@ from threadpoolctl import threadpool_limits
 from ..audio.check import check_recording
 from ..audio.load import release_samples
 from ..errors import InputError
+from ..limits import LIMITS
 
 __all__ = ["DereverbSettings", "DEFAULT_DEREVERB", "ROOM_CHOICES", "dereverberate", "wpe_single_channel",
            "validate_dereverb_settings", "wants_dereverberation", "room_signal"]
@@ -107,7 +108,7 @@ class DereverbSettings:
     rt60_threshold_s: float = 0.8
     block_seconds: float = 30.0
     overlap_seconds: float = 2.0
-    spill_seconds: float = 150.0
+    spill_seconds: float = LIMITS.long_take_seconds
     bins_per_chunk: int = 64
 
 

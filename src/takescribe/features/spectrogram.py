@@ -48,6 +48,7 @@ import librosa
 import numpy as np
 
 from ..errors import InputError
+from ..pitch import PIANO_LOWEST
 
 __all__ = [
     "ANALYSIS_SR",
@@ -63,7 +64,7 @@ __all__ = [
 ANALYSIS_SR = 22050
 HOP_LENGTH = 256
 BINS_PER_SEMITONE = 3
-MIDI_LOW = 21
+MIDI_LOW = PIANO_LOWEST
 MIDI_HIGH = 120
 
 

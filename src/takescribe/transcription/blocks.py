@@ -61,6 +61,7 @@ import numpy as np
 
 from ..audio.load import release_samples
 from ..errors import AudioWarning, InputError
+from ..limits import LIMITS
 from ..features.spectrogram import ANALYSIS_SR, HOP_LENGTH, compute_spectrogram, estimate_tuning
 from ..notes import Note, sort_notes
 from .blind import Transcription, initial_dictionary, noise_templates, track_notes
@@ -75,7 +76,7 @@ from .tracking import pitch_novelty
 __all__ = ["transcribe_long", "block_layout", "validate_block_options", "LONG_TAKE_SECONDS"]
 
 #: Takes longer than this (seconds) are transcribed in blocks by :func:`takescribe.jobs.pipeline.transcribe_take`.
-LONG_TAKE_SECONDS = 150.0
+LONG_TAKE_SECONDS = LIMITS.long_take_seconds
 
 
 def validate_block_options(block_seconds: float, overlap_seconds: float, adapt_seconds: float) -> None:

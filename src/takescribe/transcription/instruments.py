@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
+from ..pitch import PIANO_RANGE
 
 __all__ = [
     "GM_PROGRAM_NAMES",
@@ -144,7 +145,7 @@ class Instrument:
 PRESETS: dict[str, Instrument] = {
     p.name: p
     for p in (
-        Instrument("piano", 0, (21, 108), True, rolloff=1.1, inharmonicity="piano", n_partials=24),
+        Instrument("piano", 0, PIANO_RANGE, True, rolloff=1.1, inharmonicity="piano", n_partials=24),
         Instrument("guitar", 24, (40, 88), True, rolloff=1.2, inharmonicity=1.0e-4),
         Instrument("bass", 32, (28, 67), False, rolloff=1.3, inharmonicity=2.0e-4),
         Instrument("organ", 19, (36, 96), True, rolloff=0.9),

@@ -22,6 +22,7 @@ import numpy as np
 import scipy.ndimage
 
 from ..alignment.align import Alignment
+from ..pitch import PIANO_RANGE
 from ..reference.part import Reference, validate_reference
 from .settings import SCORE_PRIOR, ScorePrior
 
@@ -30,7 +31,7 @@ __all__ = ["score_mask", "PartPrior", "part_prior", "prior_pitches"]
 #: Seconds per cell of the score piano roll.
 _GRID = 0.01
 #: The piano range (MIDI 21..108, A0..C8): a part's pitch beyond the preset's range gets a template.
-_PIANO_RANGE = (21, 108)
+_PIANO_RANGE = PIANO_RANGE
 
 
 def score_mask(

@@ -46,6 +46,7 @@ import scipy.ndimage
 
 from ..errors import InputError
 from ..notes import Note, sort_notes
+from ..pitch import PARTIAL_STEPS
 from .onsets import merge_attack_stages, region_onsets
 from .settings import TrackingSettings
 
@@ -357,7 +358,7 @@ def suppress_harmonic_ghosts(
     *,
     ratio: float = 0.8,
     window: float = 0.06,
-    intervals: tuple[int, ...] = (12, 19, 24),
+    intervals: tuple[int, ...] = PARTIAL_STEPS,
     exempt=None,
 ) -> list[Note]:
     """Drop weak notes that sit on a partial of a stronger note starting with them.
