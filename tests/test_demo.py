@@ -11,11 +11,13 @@ Matching rule (a planted mistake is *found* when)
 - ``extra``: an ``extra`` finding with the same played pitch;
 - ``hesitation``: a ``hesitation`` finding;
 - ``rushed`` (a few consecutive notes increasingly early): an ``early`` or ``late``
-  finding on at least one of its notes (same pitch);
+  finding on at least one of its notes (same pitch), or a ``rushed`` finding over the passage;
 
 each within ``TIME_TOLERANCE`` (0.5 s) of the planted time (for the rushed passage: of that
 note's played onset). 0.5 s is about one beat at the demo tempi: a teacher reading the
 report would look at the same spot (common practice, no source).
+The matching is tests/support/matching.py's (one finding per planted mistake and the reverse),
+with this module's tolerance, every finding counted, and early/late notes allowed for a passage.
 
 "Nothing else of significance"
 ------------------------------
@@ -36,6 +38,7 @@ import math
 import music21
 import pytest
 
+from support.matching import match_findings
 from takescribe.cli import build_parser, main
 from takescribe.jobs.demo import (CAUTION, DEMO_STUDENTS, DRAFT_FILES, DemoResult, demo_bundle, format_demo_summary,
                              load_scenario, run_demo)
@@ -61,32 +64,15 @@ def planted() -> dict:
         return {s: json.loads((bundle / s / "planted.json").read_text()) for s in DEMO_STUDENTS}
 
 
-def _match(plan: dict, findings: list[dict]) -> dict | None:
-    """The finding that reports planted mistake ``plan`` (module docstring), or None."""
-    def near(f, t):
-        return abs(f["time"] - t) <= TIME_TOLERANCE
-
-    kind = plan["kind"]
-    for f in findings:
-        if kind == "wrong_pitch" and f["kind"] == kind and near(f, plan["time"]) \
-                and (f["expected_pitch"], f["played_pitch"]) == (plan["expected_pitch"], plan["played_pitch"]):
-            return f
-        if kind == "missed" and f["kind"] == kind and near(f, plan["time"]) \
-                and f["expected_pitch"] == plan["expected_pitch"]:
-            return f
-        if kind == "extra" and f["kind"] == kind and near(f, plan["time"]) \
-                and f["played_pitch"] == plan["played_pitch"]:
-            return f
-        if kind == "hesitation" and f["kind"] == kind and near(f, plan["time"]):
-            return f
-        if kind == "rushed" and f["kind"] in ("early", "late") and any(
-                near(f, n["time"]) and f["played_pitch"] == n["pitch"] for n in plan["notes"]):
-            return f
-    return None
+def _match(plans: list[dict], findings: list[dict]):
+    """The matching of tests/support/matching.py under this module's rule (module docstring):
+    every finding counts, a rushed passage is reported by an early or late note of it."""
+    return match_findings(findings, plans, time_tolerance=TIME_TOLERANCE, count_linked=True,
+                          count_uncertain=True, note_kinds_for_passages=("early", "late"))
 
 
 def _unplanned(plans: list[dict], findings: list[dict]) -> list[dict]:
-    matched = {id(f) for f in (_match(p, findings) for p in plans) if f is not None}
+    matched = {id(findings[j]) for _, j in _match(plans, findings).pairs}
     matched_ids = {f["id"] for f in findings if id(f) in matched}
     rush_spans = [(p["notes"][0]["time"] - TIME_TOLERANCE, p["resume_time"] + TIME_TOLERANCE)
                   for p in plans if p["kind"] == "rushed"]
@@ -211,7 +197,7 @@ def test_draft_musicxml_is_valid_musicxml_4(demo, musicxml_schema):
 def test_every_planted_mistake_is_found(demo, planted, student):
     result = next(s for s in demo.students if s.folder == student)
     findings = list(result.findings)
-    missing = [p for p in planted[student] if _match(p, findings) is None]
+    missing = [planted[student][i] for i in _match(planted[student], findings).missed_planted]
     assert not missing, (
         f"{student}: planted mistakes not reported: "
         + "; ".join(f"{p['kind']} at {p['time']:.2f} s (bar {p['measure']}, beat {p['beat']})" for p in missing)

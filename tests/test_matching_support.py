@@ -45,3 +45,14 @@ def test_f_measure_conventions():
     assert f_measure(0, 3, 0)[2] == 0.0
     p, r, f = f_measure(3, 4, 6)
     assert (p, r) == (0.75, 0.5) and abs(f - 0.6) < 1e-12
+
+
+def test_passage_reported_by_its_notes_only_when_asked():
+    # the demo's rule: an early note on a rushed passage's note (same pitch, in time) reports it
+    planted = [{"kind": "rushed", "time": 4.0, "resume_time": 6.0,
+                "notes": [{"time": 4.0, "pitch": 69}, {"time": 4.5, "pitch": 71}]}]
+    early = {"kind": "early", "time": 4.45, "played_pitch": 71}
+    assert match_findings([early], planted).hits == 0
+    assert match_findings([early], planted, note_kinds_for_passages=("early",)).hits == 1
+    other_pitch = {"kind": "early", "time": 4.45, "played_pitch": 72}
+    assert match_findings([other_pitch], planted, note_kinds_for_passages=("early",)).hits == 0

@@ -17,6 +17,11 @@ scipy's ``linear_sum_assignment`` so that, among matchings of largest size, the 
 distance is smallest. The tolerance, 0.25 s, is a choice of this project (about an eighth note
 at 120 bpm), not a published convention.
 
+A passage can also be taken as reported by note findings: with ``note_kinds_for_passages``
+(the demo passes ``("early", "late")``), a finding of one of those kinds reports a planted
+passage that lists its notes (demo plan) when it lies on one of them: same played pitch, onset
+within the tolerance.
+
 Findings linked to another (the notes of a restart or hesitation) are details of that one event
 and are not counted unless ``count_linked``; findings whose status is "to check by ear"
 (``status == "check_by_ear"``) are not claims and are not counted unless ``count_uncertain``.
@@ -78,9 +83,19 @@ def counted_findings(findings: Sequence[Any], *, count_linked: bool = False,
     return out
 
 
-def reports(finding: Any, planted: Any, *, time_tolerance: float = TIME_TOLERANCE) -> float | None:
+def _on_passage_note(finding: Any, planted: Any, time_tolerance: float) -> float | None:
+    """Time distance to the nearest planted note of the passage with the finding's played pitch."""
+    dts = [abs(float(_get(finding, "time")) - float(n["time"])) for n in _get(planted, "notes") or ()
+           if n.get("pitch") == _get(finding, "played_pitch")]
+    return min(dts) if dts and min(dts) <= time_tolerance else None
+
+
+def reports(finding: Any, planted: Any, *, time_tolerance: float = TIME_TOLERANCE,
+            note_kinds_for_passages: Sequence[str] = ()) -> float | None:
     """Time distance in seconds if ``finding`` reports ``planted``, else None."""
     kind = _get(planted, "kind")
+    if kind in PASSAGE_KINDS and _get(finding, "kind") in note_kinds_for_passages:
+        return _on_passage_note(finding, planted, time_tolerance)
     if _get(finding, "kind") != kind:
         return None
     for role in PITCH_ROLES.get(kind, ()):
@@ -138,7 +153,7 @@ class MatchResult:
 
 def match_findings(findings: Sequence[Any], planted: Sequence[Any], *,
                    time_tolerance: float = TIME_TOLERANCE, count_linked: bool = False,
-                   count_uncertain: bool = False) -> MatchResult:
+                   count_uncertain: bool = False, note_kinds_for_passages: Sequence[str] = ()) -> MatchResult:
     """Match the counted findings to planted deviations (module docstring).
 
     Finding indices in the result refer to ``counted_findings(findings, ...)``, in order.
@@ -148,7 +163,7 @@ def match_findings(findings: Sequence[Any], planted: Sequence[Any], *,
     cost = np.full((len(planted), len(found)), big)
     for i, p in enumerate(planted):
         for j, f in enumerate(found):
-            dt = reports(f, p, time_tolerance=time_tolerance)
+            dt = reports(f, p, time_tolerance=time_tolerance, note_kinds_for_passages=note_kinds_for_passages)
             if dt is not None:
                 cost[i, j] = dt
     pairs: list[tuple[int, int]] = []
