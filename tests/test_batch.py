@@ -131,14 +131,27 @@ def test_partial_outputs_are_not_overwritten(folders, local_run, tmp_path):
     assert (out / "adverse_fast_altosax_jig" / "draft.mid").read_bytes() == b"left over"
 
 
-def test_dask_cluster_gives_the_local_results(folders, local_run):
+def test_dask_cluster_from_another_folder_with_relative_paths_gives_the_local_results(folders, local_run, tmp_path,
+                                                                                      monkeypatch):
+    # issue #17: `batch --scheduler` with relative paths failed every take and made empty folders in
+    # the worker's working directory. The workers start in one folder, the batch is given paths
+    # relative to another; spawned worker processes keep the folder they were started in.
     distributed = pytest.importorskip("dask.distributed")
-    root, takes, scores = folders
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
-        summary = run_batch(takes, root / "dask", score_dir=scores, scheduler=cluster.scheduler_address,
-                            progress=False)
+    root, _, _ = folders
+    worker_home = tmp_path / "worker-home"
+    worker_home.mkdir()
+    monkeypatch.chdir(worker_home)
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                       dashboard_address=None)
+    try:
+        monkeypatch.chdir(root)
+        summary = run_batch(Path("takes"), Path("dask"), score_dir=Path("scores"),
+                            scheduler=cluster.scheduler_address, progress=False)
+    finally:
+        cluster.close(timeout=30)
     assert [(r.status, r.notes, r.findings) for r in summary.results] == \
         [(r.status, r.notes, r.findings) for r in local_run.results]
+    assert list(worker_home.iterdir()) == []   # nothing made where the workers run
     local, remote = _outputs(root / "local"), _outputs(root / "dask")
     assert sorted(local) == sorted(remote)
     for name in local:

@@ -120,7 +120,12 @@ def test_evaluate_into_a_closed_pipe_exits_quietly(tmp_path):
     notes.write_text("OnsetTime\tOffsetTime\tMidiPitch\n0.0\t0.5\t60\n")
     proc = subprocess.Popen([sys.executable, "-m", "takescribe.cli", "evaluate", str(notes), str(notes)],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-    proc.stdout.close()  # as `head` exiting before the table is printed
-    err = proc.stderr.read().decode()
-    proc.wait(timeout=60)
+    try:
+        proc.stdout.close()  # as `head` exiting before the table is printed
+        err = proc.stderr.read().decode()
+        proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
     assert err == "" and proc.returncode == 141  # 128 + SIGPIPE, the code of a program ended by SIGPIPE

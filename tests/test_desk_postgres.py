@@ -66,16 +66,41 @@ def postgres_url():
     if done.returncode != 0:
         shutil.rmtree(folder, ignore_errors=True)
         pytest.skip(f"initdb failed: {done.stderr.strip()[-300:]}")
-    done = run(pg_ctl, "-D", str(data), "-l", str(folder / "log"), "-w", "-o",
-               f"-h 127.0.0.1 -p {port} -k {folder}", "start")
-    if done.returncode != 0:
-        shutil.rmtree(folder, ignore_errors=True)
-        pytest.skip(f"pg_ctl start failed: {done.stderr.strip()[-300:]}")
     try:
+        done = run(pg_ctl, "-D", str(data), "-l", str(folder / "log"), "-w", "-o",
+                   f"-h 127.0.0.1 -p {port} -k {folder}", "start")
+        if done.returncode != 0:   # (a server that started too slowly is stopped below all the same)
+            pytest.skip(f"pg_ctl start failed: {done.stderr.strip()[-300:]}")
         yield f"postgresql://desk@127.0.0.1:{port}/postgres"
     finally:
-        run(pg_ctl, "-D", str(data), "-m", "immediate", "stop")
+        _stop_cluster(run, pg_ctl, data)
         shutil.rmtree(folder, ignore_errors=True)
+
+
+def _stop_cluster(run, pg_ctl: str, data: Path) -> None:
+    """pg_ctl stop (immediate); should the server outlive it, SIGKILL its postmaster (pid from postmaster.pid)."""
+    import signal
+    import time
+
+    pid_file = data / "postmaster.pid"
+    pid = int(pid_file.read_text().split()[0]) if pid_file.exists() else None
+    try:
+        run(pg_ctl, "-D", str(data), "-m", "immediate", "stop")
+    except subprocess.TimeoutExpired:
+        pass
+    if pid is None:
+        return
+    deadline = time.monotonic() + 10
+    while time.monotonic() < deadline:
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            return
+        time.sleep(0.2)
+    try:
+        os.kill(pid, signal.SIGKILL)
+    except ProcessLookupError:
+        pass
 
 
 def test_library_on_postgresql(tmp_path, postgres_url):

@@ -87,7 +87,13 @@ def _run(args: list[str], *, fault: str, tmp: Path) -> tuple[int, str, int]:
     env.update({FAULT_ENV: fault, "TMPDIR": str(tmp)})
     proc = subprocess.Popen([sys.executable, "-m", "takescribe.cli", *args, "--quiet"], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
-    _, err = proc.communicate(timeout=240)
+    try:
+        _, err = proc.communicate(timeout=240)
+    finally:   # a run that overstays (or a test stopped by its timeout) leaves no process of its session
+        if proc.poll() is None:
+            with contextlib.suppress(ProcessLookupError):
+                os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait(10)
     return proc.returncode, err, proc.pid
 
 

@@ -320,11 +320,16 @@ class _Marionette:
             'user_pref("network.proxy.http_port", 9);\nuser_pref("app.update.enabled", false);\n', encoding="utf-8")
         self.process = subprocess.Popen([firefox, "--headless", "--marionette", "--no-remote", "--profile", str(profile)],
                                         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        port_file = profile / "MarionetteActivePort"
+        try:
+            self._connect(profile / "MarionetteActivePort", timeout)
+        except BaseException:   # never leave Firefox running behind a failed start
+            self.close()
+            raise
+
+    def _connect(self, port_file: Path, timeout: float) -> None:
         deadline = time.monotonic() + timeout
         while not (port_file.exists() and port_file.read_text().strip()):
             if time.monotonic() > deadline or self.process.poll() is not None:
-                self.close()
                 raise RuntimeError("Firefox did not start its Marionette server")
             time.sleep(0.2)
         self.socket = socket.create_connection(("127.0.0.1", int(port_file.read_text().strip())), timeout=timeout)
@@ -366,6 +371,7 @@ class _Marionette:
             self.process.wait(timeout=15)
         except subprocess.TimeoutExpired:
             self.process.kill()
+            self.process.wait(timeout=15)
 
 
 @pytest.mark.skipif(FIREFOX is None, reason="firefox-esr is not on PATH (Debian: apt-get install firefox-esr)")

@@ -87,9 +87,14 @@ def test_signal_mid_write_never_leaves_a_partial_destination(tmp_path, sig):
             fh.write("end")
     """)
     proc = subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    assert proc.stdout.readline().strip() == "writing"
-    proc.send_signal(sig)
-    proc.wait(timeout=30)
+    try:
+        assert proc.stdout.readline().strip() == "writing"
+        proc.send_signal(sig)
+        proc.wait(timeout=30)
+    finally:   # never leave the writer sleeping behind a failed check
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
     assert proc.returncode != 0
     assert target.read_text() == "old complete file"
     leftovers = [p.name for p in tmp_path.iterdir() if p.name != "draft.txt"]

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import os
 import re
+import selectors
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -19,22 +21,35 @@ WEEKS = sorted(HERE.glob("*.ogg"))
 class DeskProcess:
     """``takescribe desk`` in a subprocess on a free port, with a logged-in HTTP session."""
 
-    def __init__(self, library: Path, *extra: str, workers: int = 1) -> None:
+    def __init__(self, library: Path, *extra: str, workers: int = 1, start_seconds: float = 120.0) -> None:
         self.library = Path(library)
         args = [sys.executable, "-m", "takescribe.cli", "desk", "--library", str(library), "--port", "0",
                 "--no-browser", "--workers", str(workers), *extra]
-        self.proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                                     env=dict(os.environ))
-        line = self.proc.stdout.readline()
-        found = re.search(r"(http://127\.0\.0\.1:(\d+))/\?key=(\S+)", line)
-        if not found:
-            self.proc.kill()
-            raise RuntimeError(f"the desk did not start: {line!r} {self.proc.stderr.read()[-2000:]}")
-        self.base, self.port, self.key = found[1], int(found[2]), found[3]
-        self.session = requests.Session()
-        self.session.get(f"{self.base}/?key={self.key}", timeout=30)
-        page = self.session.get(f"{self.base}/students", timeout=30).text
-        self.check = re.search(r'const CHECK = "([0-9a-f]+)"', page)[1]
+        # stderr to a file, not a pipe nobody reads: a full pipe would block the desk
+        self.log = tempfile.TemporaryFile(mode="w+")
+        self.proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=self.log, text=True, env=dict(os.environ))
+        try:
+            line = self._first_line(start_seconds)
+            found = re.search(r"(http://127\.0\.0\.1:(\d+))/\?key=(\S+)", line)
+            if not found:
+                self.log.seek(0)
+                raise RuntimeError(f"the desk did not start: {line!r} {self.log.read()[-2000:]}")
+            self.base, self.port, self.key = found[1], int(found[2]), found[3]
+            self.session = requests.Session()
+            self.session.get(f"{self.base}/?key={self.key}", timeout=30)
+            page = self.session.get(f"{self.base}/students", timeout=30).text
+            self.check = re.search(r'const CHECK = "([0-9a-f]+)"', page)[1]
+        except BaseException:   # never leave a desk running behind a failed start
+            self.stop()
+            raise
+
+    def _first_line(self, seconds: float) -> str:
+        """The line the desk prints when it listens, waited for at most ``seconds``."""
+        with selectors.DefaultSelector() as selector:
+            selector.register(self.proc.stdout, selectors.EVENT_READ)
+            if not selector.select(timeout=seconds):
+                return f"(nothing printed in {seconds:.0f} s)"
+        return self.proc.stdout.readline()
 
     def get(self, path: str, **kw):
         return self.session.get(self.base + path, timeout=30, **kw)
@@ -71,11 +86,14 @@ class DeskProcess:
         raise AssertionError(f"job {job} did not reach {until} in {timeout} s: {state}")
 
     def stop(self) -> None:
+        """Stop the desk (SIGTERM, then SIGKILL after 10 s); its job workers die with it (PR_SET_PDEATHSIG)."""
         if self.proc.poll() is None:
             self.proc.terminate()
             try:
                 self.proc.wait(10)
             except subprocess.TimeoutExpired:
                 self.proc.kill()
-                self.proc.wait()
+                self.proc.wait(10)
+        if self.proc.stdout is not None:
+            self.proc.stdout.close()
 

@@ -17,16 +17,16 @@ __all__ = ["sniff_audio", "sniff_part", "check_audio_file", "clean_label", "gues
            "AUDIO_SUFFIXES"]
 
 # suffixes of files the watched folder looks at (the content is still checked)
-AUDIO_SUFFIXES = (".wav", ".wave", ".flac", ".ogg", ".oga", ".opus", ".mp3", ".m4a", ".aif", ".aiff")
+AUDIO_SUFFIXES = (".wav", ".wave", ".flac", ".ogg", ".oga", ".opus", ".mp3", ".m4a", ".aac", ".aif", ".aiff")
 
 
 def sniff_audio(head: bytes) -> str | None:
-    """The kind of a recording from its first bytes (``wav``, ``flac``, ``ogg``, ``mp3``, ``aiff``, ``m4a``), or None.
+    """The kind of a recording from its first bytes (``wav``, ``flac``, ``ogg``, ``aac``, ``mp3``, ``aiff``, ``m4a``), or None.
 
     Signatures from the formats' own specifications: RIFF/WAVE (Microsoft RIFF), ``fLaC``
     (FLAC format, RFC 9639), ``OggS`` (RFC 3533), ``ID3`` or an 11-bit MPEG frame sync
     (ISO/IEC 11172-3), ``FORM....AIFF`` (Apple AIFF 1.3), ``....ftyp`` with an audio brand
-    (ISO/IEC 14496-12).
+    (ISO/IEC 14496-12), an ADTS header (raw AAC, ISO/IEC 13818-7: the sync with layer bits 00).
     """
     if len(head) >= 12 and head[:4] == b"RIFF" and head[8:12] == b"WAVE":
         return "wav"
@@ -34,6 +34,8 @@ def sniff_audio(head: bytes) -> str | None:
         return "flac"
     if head[:4] == b"OggS":
         return "ogg"
+    if len(head) >= 2 and head[0] == 0xFF and head[1] & 0xF6 == 0xF0:   # ADTS: sync, layer 00 (ISO/IEC 13818-7)
+        return "aac"
     if head[:3] == b"ID3" or (len(head) >= 2 and head[0] == 0xFF and head[1] & 0xE0 == 0xE0):
         return "mp3"
     if len(head) >= 12 and head[:4] == b"FORM" and head[8:12] in (b"AIFF", b"AIFC"):
@@ -70,7 +72,7 @@ def check_audio_file(path: Path, *, label: str) -> str:
     kind = sniff_audio(head)
     if kind is None:
         raise AudioError(f"{label}: is not a recording the desk can read (its content is not WAV, FLAC, OGG/Opus,"
-                         " MP3, AIFF or M4A, whatever its name says); export the take as WAV or FLAC")
+                         " MP3, AIFF, M4A or AAC, whatever its name says); export the take as WAV or FLAC")
     try:
         audio_info(path)
     except AudioError as exc:

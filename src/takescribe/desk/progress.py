@@ -141,10 +141,12 @@ def progress_json(progress: Progress) -> dict:
         "schema": "takescribe-progress/1",
         "takes": [{"label": t.label, "date": t.date, "findings": int(progress.per_bar[:, k].sum()),
                    "median_bpm": _num(progress.median_bpm[k]), "tempo_spread_percent": _num(progress.tempo_spread[k]),
-                   "counts": {kind: progress.counts[kind][k] for kind in progress.counts}}
+                   "counts": {kind: int(progress.counts[kind][k]) for kind in progress.counts}}
                   for k, t in enumerate(progress.takes)],
         "findings_per_bar": {str(b): [int(v) for v in progress.per_bar[b - 1]] for b in progress.bars},
-        "recurring_bars": list(progress.recurring),
+        # numpy numbers (counts, bars) become plain JSON numbers
+        "recurring_bars": [{key: (v.item() if hasattr(v, "item") else v) for key, v in r.items()}
+                           for r in progress.recurring],
         "note": "Drafts for a teacher's judgement, not grades.",
     }
 

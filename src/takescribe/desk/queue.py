@@ -211,6 +211,28 @@ def _worker_init(niceness: int) -> None:
         ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, signal.SIGKILL)   # PR_SET_PDEATHSIG
     except (OSError, AttributeError):
         pass
+    _warm_up_in_turn()
+
+
+def _warm_up_in_turn() -> None:
+    """Compile (or load) librosa's cached numba code one worker at a time.
+
+    Workers spawned together compiled it at once into the same on-disk cache, which can tear a
+    cache file and crash a worker mid-job (seen as ``BrokenProcessPool`` in the desk's browser
+    test); see :func:`takescribe.jobs.batch._warm_up`. A file lock next to the cache orders them.
+    """
+    import fcntl
+    import tempfile
+
+    from ..jobs.batch import _warm_up
+
+    folder = Path(os.environ.get("NUMBA_CACHE_DIR") or tempfile.gettempdir())
+    with open(folder / ".takescribe-warm-up.lock", "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        try:
+            _warm_up()
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
 
 
 class JobRunner:
@@ -262,8 +284,10 @@ class JobRunner:
         self.wake.set()
         if self.thread is not None:
             self.thread.join(timeout=5)
-        if self.pool is not None:
-            self.pool.shutdown(wait=False, cancel_futures=True)
+        if self.pool is not None:   # running jobs are stopped now and run again at the next start
+            from ..jobs.batch import _stop_pool
+
+            _stop_pool(self.pool)
         if self.client is not None:
             self.client.close()
 
