@@ -595,3 +595,42 @@ def test_faint_evidence_makes_a_missing_note_uncertain_not_missed():
     elsewhere = [Note(gone.onset + 0.6, gone.offset + 0.6, gone.pitch, 20), Note(gone.onset, gone.offset, gone.pitch + 1, 20)]
     result = compare_notes(ref, None, played, faint_notes=elsewhere)
     assert kinds(result) == Counter({"missed": 1})
+
+
+# --------------------------------------------------------------------------- transposing parts (#16 item 3)
+
+_HELDOUT = Path(__file__).resolve().parents[1] / "fixtures" / "corpus" / "heldout"
+
+
+def _concert_pitch_copy(path: Path, out: Path) -> Path:
+    """The part at sounding pitch with no <transpose> (music21 rewrites it, a library outside the project)."""
+    from music21 import converter, instrument
+
+    score = converter.parse(str(path)).toSoundingPitch()
+    for inst in score.recurse().getElementsByClass(instrument.Instrument):
+        inst.transposition = None
+    score.write("musicxml", fp=str(out))
+    return out
+
+
+# written -> sounding: B-flat clarinet a major second down, E-flat alto saxophone a major sixth
+# down (common practice, no source)
+@pytest.mark.parametrize("name, written_minus_sounding", [("melody_clarinet_tune", 2), ("melody_altosax_jig", 9)])
+def test_transposing_part_gives_the_findings_of_its_concert_pitch_version(name, written_minus_sounding, tmp_path):
+    from takescribe.reference.part import load_reference
+
+    written = load_reference(_HELDOUT / f"{name}.musicxml")
+    concert = load_reference(_concert_pitch_copy(_HELDOUT / f"{name}.musicxml", tmp_path / "concert.musicxml"))
+    played = [Note(n.onset, n.offset, n.pitch) for n in written.notes]
+    played[3] = Note(played[3].onset, played[3].offset, played[3].pitch + 1)  # a wrong note
+    del played[8]  # a missed note
+    end = max(n.offset for n in written.notes) + 1.0
+    results = [compare_notes(ref, FakeAlignment([0, end], [0, end]), played) for ref in (written, concert)]
+    keys = [[(f.kind, f.time, f.measure, f.expected_pitch, f.played_pitch) for f in r.findings] for r in results]
+    assert keys[0] == keys[1] and {"wrong_pitch", "missed"} <= {k[0] for k in keys[0]}
+    wrong = [next(f for f in r.findings if f.kind == "wrong_pitch") for r in results]
+    # the written part's text names the note as the player reads it; the concert score's, as it sounds
+    assert pitch_name(wrong[0].expected_pitch + written_minus_sounding) in wrong[0].text
+    assert pitch_name(wrong[1].expected_pitch) in wrong[1].text
+    assert results[0].summary["written_minus_sounding"] == written_minus_sounding
+    assert results[1].summary["written_minus_sounding"] == 0

@@ -821,3 +821,27 @@ def test_with_the_part_played_notes_take_the_written_values():
     assert got == want
     assert len(notation.grid.measures_until(notation.bars_end_quarters())) == len(reference.measure_starts) - 1
     shutil.rmtree(tmp)
+
+
+def test_with_the_part_a_note_not_heard_leaves_no_rest_the_part_lacks(tmp_path):
+    """A part note the transcription missed, where the part sounds on: the note before lasts to
+    the next played note (no rest the part lacks; issue #16); where the part has a rest, it stays."""
+    from takescribe.reference.part import load_reference
+
+    path = tmp_path / "folk.musicxml"
+    piece_folk_song().write("musicxml", fp=str(path))  # Essen folk song (music21 corpus), one voice
+    reference = load_reference(path)
+    notes = [n for n in reference.notes if not n.is_grace]
+    ends = {Fraction(n.onset_quarters + n.duration_quarters).limit_denominator(48) for n in notes}
+    # a note that starts where the note before it ends (the part sounds on through it)
+    k = next(i for i in range(1, len(notes) - 1)
+             if Fraction(notes[i].onset_quarters).limit_denominator(48) in ends)
+    played = [Note(n.onset, n.offset, n.pitch, 80) for i, n in enumerate(notes) if i != k]
+    got = {n.onset_quarters: n for n in notate(played, reference=reference, measured_offsets=False).notes()}
+    before = got[Fraction(notes[k - 1].onset_quarters).limit_denominator(48)]
+    assert before.onset_quarters + before.duration_quarters == Fraction(notes[k + 1].onset_quarters).limit_denominator(48)
+    # every other note keeps the part's written value
+    for i, n in enumerate(notes):
+        if i not in (k - 1, k):
+            q = got[Fraction(n.onset_quarters).limit_denominator(48)]
+            assert q.duration_quarters == Fraction(n.duration_quarters).limit_denominator(48)

@@ -57,8 +57,12 @@ def compare_notes(part: list, draft: list, *, shift: Fraction = Fraction(0)) -> 
     return placed, valued
 
 
-def bar_marks(path: Path) -> list[tuple[bool, bool]]:
-    """Per bar of the first part: (has a tuplet, has a rest), from music21's reading."""
+def bar_marks(path: Path, *, hidden_rests: bool = False) -> list[tuple[bool, bool]]:
+    """Per bar of the first part: (has a tuplet, has a rest), from music21's reading.
+
+    ``hidden_rests``: a rest written with ``print-object="no"`` counts too (the world corpus'
+    parts fill a phrase's breath with such rests: the part is silent there, so a draft's rest
+    in that bar is not one the part lacks)."""
     from music21 import converter, note, stream
 
     score = converter.parse(str(path))
@@ -69,14 +73,14 @@ def bar_marks(path: Path) -> list[tuple[bool, bool]]:
             for el in m.recurse().notesAndRests:
                 if el.duration.tuplets:
                     flags[0] = True
-                if isinstance(el, note.Rest) and not el.style.hideObjectOnPrint:
+                if isinstance(el, note.Rest) and (hidden_rests or not el.style.hideObjectOnPrint):
                     flags[1] = True
     return [tuple(out[i]) for i in sorted(out)]
 
 
 def extra_bars(part_path: Path, draft_path: Path) -> tuple[int, int]:
     """Bars of the draft with a tuplet or a rest that the part's bar lacks, and the bar count."""
-    part, draft = bar_marks(part_path), bar_marks(draft_path)
+    part, draft = bar_marks(part_path, hidden_rests=True), bar_marks(draft_path)
     bad = 0
     for i, (tup, rest) in enumerate(draft):
         ptup, prest = part[i] if i < len(part) else (False, False)
@@ -139,7 +143,10 @@ def main(argv=None) -> int:
     ap.add_argument("--limit", type=int, default=0, help="at most this many takes (0: all)")
     ap.add_argument("--blind-only", action="store_true")
     ap.add_argument("--part-only", action="store_true")
+    ap.add_argument("--out", type=Path, help="folder of the drafts (default /work/cache/notation_bench)")
     args = ap.parse_args(argv)
+    global OUT
+    OUT = args.out or OUT
     manifest = json.loads((WORLD / "manifest.json").read_text())
     takes = [t for t in manifest["takes"] if t["correct"] and t["split"] == args.split]
     if args.limit:

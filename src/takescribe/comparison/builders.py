@@ -47,6 +47,12 @@ class Settled:
     note_status: list = field(default_factory=list)
     played_status: list = field(default_factory=list)
     group_index: dict = field(default_factory=dict)
+    # semitones from sounding to written pitch (a B-flat clarinet: +2): texts name what the player reads
+    written_offset: int = 0
+
+    def name(self, pitch) -> str:
+        """The pitch as the player reads it (written pitch) for the findings' texts."""
+        return pitch_name(int(pitch) + self.written_offset)
 
     def __post_init__(self) -> None:
         n_ref, n_played = len(self.part.onsets), len(self.played_on)
@@ -120,7 +126,7 @@ def hesitation_findings(ctx: Settled, out: Collector) -> dict:
             "hesitation", start, **pos, expected_pitch=None if i0 is None else int(part.pitches[i0]),
             deviation=pause, reference_index=i0,
             text=(f"{bar_text(pos)}: a pause of {pause:.1f} s before "
-                  f"{'this note' if i0 is None else pitch_name(part.pitches[i0])} that the part does not have."),
+                  f"{'this note' if i0 is None else ctx.name(part.pitches[i0])} that the part does not have."),
         )
     return hesitation_of_group
 
@@ -186,7 +192,7 @@ def timing_and_length_findings(ctx: Settled, out: Collector, hesitation_of_group
         pos = part.where(i)
         g = ctx.group_index.get(round(float(part.onsets[i]), 4))
         residual = _timing_residual(ctx, i, j, g)
-        name = pitch_name(part.pitches[i])
+        name = ctx.name(part.pitches[i])
         common = dict(**pos, expected_pitch=int(part.pitches[i]), played_pitch=int(ctx.played_pitch[j]),
                       reference_index=i, played_index=j)
         if abs(residual) > ctx.timing_tolerance:
@@ -217,8 +223,8 @@ def wrong_pitch_findings(ctx: Settled, out: Collector) -> None:
         step = int(played_pitch[j] - part.pitches[i])
         out.add("wrong_pitch", ctx.played_on[j], **pos, expected_pitch=int(part.pitches[i]),
                 played_pitch=int(played_pitch[j]), deviation=float(step), reference_index=i, played_index=j,
-                text=(f"{bar_text(pos)}: played {pitch_name(played_pitch[j])} where the part has "
-                      f"{pitch_name(part.pitches[i])} ({step:+d} semitone{'s' if abs(step) != 1 else ''})."))
+                text=(f"{bar_text(pos)}: played {ctx.name(played_pitch[j])} where the part has "
+                      f"{ctx.name(part.pitches[i])} ({step:+d} semitone{'s' if abs(step) != 1 else ''})."))
 
 
 def _masked_by_partials(ctx: Settled, i: int) -> bool:
@@ -253,7 +259,7 @@ def missed_findings(ctx: Settled, out: Collector) -> None:
         pos = part.where(i)
         merged = any(ctx.sounds_through(j, float(ctx.predicted[i])) for j in range(len(ctx.played_on))
                      if ctx.played_pitch[j] == part.pitches[i] and ctx.played_status[j] == "matched")
-        text = (f"{bar_text(pos)}: {pitch_name(part.pitches[i])} in the part was not heard"
+        text = (f"{bar_text(pos)}: {ctx.name(part.pitches[i])} in the part was not heard"
                 + (" as a new note: the same pitch sounded on through its place (not played again?)."
                    if merged else "."))
         out.add("missed", ctx.predicted[i], **pos, expected_pitch=int(part.pitches[i]), reference_index=i, text=text)
@@ -275,7 +281,7 @@ def extra_findings(ctx: Settled, out: Collector, restart_items: list) -> None:
         attempted = ctx.restarts[owner].abandoned_refs.get(j) if owner is not None else None
         # a note of a left-off attempt sits where that attempt was in the part
         pos = part.where(attempted) if attempted is not None else take_position(float(ctx.played_on[j]))
-        text = (f"{bar_text(pos)}: {pitch_name(ctx.played_pitch[j])} "
+        text = (f"{bar_text(pos)}: {ctx.name(ctx.played_pitch[j])} "
                 + ("from the attempt that was started again." if linked is not None else "that is not in the part."))
         out.add("extra", ctx.played_on[j], **pos, played_pitch=int(ctx.played_pitch[j]), played_index=j,
                 linked=linked, text=text)

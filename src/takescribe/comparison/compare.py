@@ -252,7 +252,8 @@ def compare_notes(
     settled = _settle(part, take, expected0, expected0_off, options)
     ctx = Settled(part, take.on, take.off, take.pitch, *settled, timing_tolerance=timing_tolerance,
                   duration_tolerance=duration_tolerance, judge_durations=bool(judge_durations),
-                  mask_partials=mask_partials, faint_notes=tuple(faint_notes or ()), tuning=TUNING)
+                  mask_partials=mask_partials, faint_notes=tuple(faint_notes or ()), tuning=TUNING,
+                  written_offset=-int(getattr(reference, "transposition", 0) or 0))
     findings, flagged = _build_findings(ctx)
     summary = _summary(ctx, findings, flagged, alignment, played_count=n_played)
     return Comparison(
@@ -465,4 +466,6 @@ def _summary(ctx: Settled, findings: list[Finding], flagged: set, alignment: Any
                                     for m, c in sorted(per_bar.items(), key=lambda mc: (-mc[1], mc[0]))[:5]],
         "alignment_confidence": None if confidence is None else round(float(confidence), 4),
         "take_duration": round(take_end, 4),
+        # pitches in findings are sounding; the texts name written pitch = sounding + this
+        "written_minus_sounding": int(ctx.written_offset),
     }

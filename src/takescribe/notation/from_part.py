@@ -4,14 +4,16 @@ A played note that belongs to a note of the part (same pitch, close in time afte
 alignment) is written with the part's position, written length, staff and spelling: the
 player's intent is the part. A played note of another pitch in the place of a part note
 that was not played (a wrong note) takes that note's place and length with its own pitch.
-Other played notes (added notes) are quantized on the grid; part notes nobody played
-are left out (rests show them). A sustaining note stopped well before its written end
+Other played notes (added notes) are quantized on the grid. Part notes nobody was heard
+to play are left out; where the part sounds on through them, the note before lasts until
+the next played note of its staff (a missed note is not a rest the part lacks), elsewhere
+the part's own silence is a rest. A sustaining note stopped well before its written end
 keeps the length it was heard to have.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from fractions import Fraction
 from typing import Any, Sequence
 
@@ -108,7 +110,7 @@ def match_part(notes: Sequence[Note], reference: Any, alignment: Any, grid: Beat
         pairs = [(c, rest[i], j) for c, i, j in _pairs(played_on[rest], played_pitch[rest], part_on, part_pitch,
                                                       window / 2, same_pitch=False) if free[j]]
         match.update(_greedy(pairs, used_played, used_part))
-    placed = []
+    placed, heard_short = [], set()
     for i, j in sorted(match.items()):
         sn, n = part[j], notes[i]
         onset = Fraction(sn.onset_quarters).limit_denominator(_DIVISIONS)
@@ -116,6 +118,43 @@ def match_part(notes: Sequence[Note], reference: Any, alignment: Any, grid: Beat
         length = written
         if measured_offsets and n.duration < settings.held_short_share * (sn.offset - sn.onset):
             length = _held_length(n, onset, written, grid)
+            heard_short.add(len(placed))
         placed.append((QuantizedNote(onset, length, int(n.pitch), int(n.velocity), n), int(sn.staff)))
+    if settings.bridge_unheard and len(match) < len(part):
+        placed = _bridge_unheard(placed, part, keep=heard_short)
     unplaced = tuple(n for i, n in enumerate(notes) if i not in used_played)
     return PartMatch(tuple(placed), unplaced)
+
+
+def _sounding_spans(part: list, staff: int) -> list[tuple[Fraction, Fraction]]:
+    """Where the part's ``staff`` sounds, as merged ``(start, end)`` spans in quarters."""
+    spans: list[list[Fraction]] = []
+    for start, end in sorted((Fraction(sn.onset_quarters).limit_denominator(_DIVISIONS),
+                              Fraction(sn.onset_quarters + sn.duration_quarters).limit_denominator(_DIVISIONS))
+                             for sn in part if int(sn.staff) == staff and not getattr(sn, "is_grace", False)):
+        if spans and start <= spans[-1][1]:
+            spans[-1][1] = max(spans[-1][1], end)
+        else:
+            spans.append([start, end])
+    return [(a, b) for a, b in spans]
+
+
+def _bridge_unheard(placed: list, part: list, *, keep: set) -> list:
+    """Lengthen a placed note to the next placed onset of its staff where the part sounds
+    on through the gap (part notes not found in the take); notes in ``keep`` (heard short) stay."""
+    out = list(placed)
+    for staff in sorted({s for _, s in placed}):
+        spans = _sounding_spans(part, staff)
+        idx = sorted((k for k, (_, s) in enumerate(placed) if s == staff), key=lambda k: placed[k][0].onset_quarters)
+        onsets = sorted({placed[k][0].onset_quarters for k in idx})
+        for k in idx:
+            if k in keep:
+                continue
+            q = placed[k][0]
+            end = q.onset_quarters + q.duration_quarters
+            later = [o for o in onsets if o > q.onset_quarters]
+            if not later or later[0] <= end:
+                continue
+            if any(a <= end and later[0] <= b for a, b in spans):
+                out[k] = (replace(q, duration_quarters=later[0] - q.onset_quarters), staff)
+    return out

@@ -126,6 +126,10 @@ class PartDraftSettings:
     # a played note much shorter than written (fraction of the written length) is a
     # shortened note: only for sustaining instruments, which are heard to stop
     held_short_share: float = 0.5
+    # a part note the transcription did not find, where the part sounds on, lengthens the
+    # played note before it rather than leaving a rest the part lacks (correct takes of the
+    # world corpus' tuning split: such rests were most bars with a rest the part lacks)
+    bridge_unheard: bool = True
 
 
 METER = MeterSettings()

@@ -478,9 +478,12 @@ def _header_at_sounding_pitch(score, index: int):
     # a library's placeholders are no title (music21 writes them when a score has none)
     title = "" if title == "Music21 Fragment" else title
     composer = "" if composer == "Music21" else composer
-    inst = _group_parts(score)[index][1][0].getInstrument(returnDefault=False)
+    chosen = _group_parts(score)[index][1][0]
+    inst = chosen.getInstrument(returnDefault=False)
     interval = getattr(inst, "transposition", None) if inst is not None else None
-    semitones = int(interval.semitones) if interval is not None else 0
+    # only a part written transposed (read with <transpose>) has one: music21 gives an instrument
+    # found by name ("Clarinet in B-flat") its usual transposition even in a concert-pitch score
+    semitones = int(interval.semitones) if interval is not None and chosen.atSoundingPitch is False else 0
     if any(p.atSoundingPitch is False for p in score.parts):
         score = score.toSoundingPitch()
     return {"title": title, "composer": composer, "transposition": semitones}, score
