@@ -251,9 +251,8 @@ def compare_notes(
                        tuning=TUNING)
     settled = _settle(part, take, expected0, expected0_off, options)
     ctx = Settled(part, take.on, take.off, take.pitch, *settled, timing_tolerance=timing_tolerance,
-                  duration_tolerance=duration_tolerance, judge_durations=bool(judge_durations),
-                  mask_partials=mask_partials, faint_notes=tuple(faint_notes or ()), tuning=TUNING,
-                  written_offset=-int(getattr(reference, "transposition", 0) or 0))
+                  duration_tolerance=duration_tolerance, judge_durations=bool(judge_durations), mask_partials=mask_partials,
+                  faint_notes=tuple(faint_notes or ()), tuning=TUNING, written_offset=_written_offset(reference))
     findings, flagged = _build_findings(ctx)
     summary = _summary(ctx, findings, flagged, alignment, played_count=n_played)
     return Comparison(
@@ -437,6 +436,11 @@ def _build_findings(ctx: Settled) -> tuple[list[Finding], set]:
     missed_findings(ctx, out)
     extra_findings(ctx, out, restart_items)
     return number_findings(out.raw), flagged
+
+
+def _written_offset(reference: Any) -> int:
+    """Semitones from sounding to written pitch of a part read with ``<transpose>`` (0 otherwise)."""
+    return -int(getattr(reference, "transposition", 0) or 0)
 
 
 def _summary(ctx: Settled, findings: list[Finding], flagged: set, alignment: Any, *, played_count: int) -> dict:
