@@ -23,7 +23,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from takescribe.audio import load as audio
+from takescribe.audio import probe as audio  # opens the take since the split of audio/load.py
 from takescribe.errors import EXIT_BAD_INPUT, EXIT_OK, EXIT_OUTPUT
 from test_audio import BAD_INPUTS, chord
 from test_fuzz_readers import MUSICXML_TEXT

@@ -1,7 +1,7 @@
 """The practice report files (HTML page, findings JSON, annotated MusicXML).
 
 Modules, in the order the page is made: ``styles`` (names, colours, shapes), ``annotate``
-(findings on the part's notes, MusicXML), ``engrave`` (the part as SVG, verovio), ``media``
+(findings on the part's notes, MusicXML), ``engrave`` (the part as SVG, by the engraving library), ``media``
 (the take compressed), ``voice`` ("hear the part"), ``roll`` (piano roll, pace), ``table``
 (every finding), ``script`` (listening in the page), ``page`` (the HTML), ``practice``
 (:func:`write_report`, the files).

@@ -133,7 +133,7 @@ def _engravings(comparison, reference, written, musicxml: bytes) -> list[str]:
             sure = annotate(comparison, reference, written, include_uncertain=False)
             svgs.append(engrave_svg(sure.musicxml, id_suffix="-s"))
         return svgs
-    except (ValueError, RuntimeError) as exc:  # verovio refused the file: the piano roll still shows the part
+    except (ValueError, RuntimeError) as exc:  # the engraving library refused the file: the piano roll still shows the part
         warnings.warn(f"the part could not be engraved for the report ({exc}); the page shows the piano roll only",
                       ReportWarning, stacklevel=3)
         return []
