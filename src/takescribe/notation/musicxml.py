@@ -252,13 +252,15 @@ _RANDOM_ID = re.compile(r'id="(I[0-9a-f]{32})"')
 
 
 def stable_ids(text: str) -> str:
-    """music21's random instrument ids (``I`` + 32 hex digits) renamed ``I1``, ``I2``... in order
+    """music21's random instrument and part ids (``I`` / ``P`` + 32 hex digits) renamed ``I1``, ``P1``... in order
     of first appearance, every reference to one id renamed alike: the same notation gives the
     same bytes."""
-    names: dict[str, str] = {}
-    for found in _RANDOM_ID.findall(text):
-        names.setdefault(found, f"I{len(names) + 1}")
-    return re.sub(r"\bI[0-9a-f]{32}\b", lambda m: names.get(m.group(0), m.group(0)), text)
+    for letter in "IP":  # instruments, and parts (a part made without an id gets a random one)
+        names: dict[str, str] = {}
+        for found in re.findall(rf"\b{letter}[0-9a-f]{{32}}\b", text):
+            names.setdefault(found, f"{letter}{len(names) + 1}")
+        text = re.sub(rf"\b{letter}[0-9a-f]{{32}}\b", lambda m: names.get(m.group(0), m.group(0)), text)
+    return text
 
 
 def _export(score, composer: str) -> str:
