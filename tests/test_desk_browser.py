@@ -46,6 +46,19 @@ def browser():
     driver.quit()
 
 
+def _no_job_workers_left() -> None:
+    """No job worker of the stopped desk is left (a leftover process can hang a CI run)."""
+    psutil = pytest.importorskip("psutil")
+    workers = []
+    for process in psutil.Process().children(recursive=True):
+        try:
+            if "spawn_main" in " ".join(process.cmdline()) and process.status() != psutil.STATUS_ZOMBIE:
+                workers.append(process.cmdline())
+        except psutil.Error:   # ended meanwhile
+            pass
+    assert workers == [], workers
+
+
 def _wait(driver, test, timeout=30.0):
     return WebDriverWait(driver, timeout, poll_frequency=0.3).until(lambda d: test(d))
 
@@ -142,5 +155,6 @@ def test_a_teacher_uses_the_desk_from_piece_to_removal(tmp_path, browser):
         assert not list((desk.library.root / "outputs").iterdir())
     finally:
         desk.stop()   # the server, the job feeder and its worker processes
+    _no_job_workers_left()
     assert len(list(shots.glob("*.png"))) == 10
     print(f"screenshots: {shots}")
