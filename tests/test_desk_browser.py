@@ -60,7 +60,12 @@ def _no_job_workers_left() -> None:
 
 
 def _wait(driver, test, timeout=30.0):
-    return WebDriverWait(driver, timeout, poll_frequency=0.3).until(lambda d: test(d))
+    """Until ``test(driver)`` holds; a page being replaced (a stale or missing element) is looked at again."""
+    from selenium.common.exceptions import NoSuchElementException, StaleElementReferenceException
+
+    return WebDriverWait(driver, timeout, poll_frequency=0.3,
+                         ignored_exceptions=(NoSuchElementException, StaleElementReferenceException)).until(
+        lambda d: test(d))
 
 
 def test_a_teacher_uses_the_desk_from_piece_to_removal(tmp_path, browser):
