@@ -703,7 +703,7 @@ TEST_OUTPUT = Path(__file__).resolve().parents[1] / "test-output" / "notation"
 
 
 def _engrave(path: Path) -> tuple[str, str]:
-    """verovio's SVG of the first page and its log (warnings and errors), logging to a buffer."""
+    """The engraving library's SVG of the first page and its log (warnings and errors), logging to a buffer."""
     verovio = pytest.importorskip("verovio")
     verovio.enableLog(verovio.LOG_WARNING)
     tk = verovio.toolkit()
@@ -748,7 +748,7 @@ def _family_drafts(tmp_path: Path) -> dict[str, tuple[Path, Notation]]:
 
 def test_drafts_engrave_without_warnings_and_read_back(tmp_path, schema):
     """Every family's draft: valid MusicXML 4.0 (the XSD), the same notes read back through
-    music21 (at sounding pitch), engraved by verovio with an empty warning log; a PNG per
+    music21 (at sounding pitch), engraved by the engraving library with an empty warning log; a PNG per
     family goes to test-output/notation/ for a reader."""
     for family, (path, notation) in _family_drafts(tmp_path).items():
         validate_xml(path, schema)
@@ -758,7 +758,7 @@ def test_drafts_engrave_without_warnings_and_read_back(tmp_path, schema):
         got = Counter((midi, on, ql) for part in back.parts for midi, _, on, ql in _merged_notes(part))
         assert got == Counter((n.pitch, n.onset_quarters, n.duration_quarters) for n in notation.notes()), family
         svg, log = _engrave(path)
-        assert "<svg" in svg and not log.strip(), f"{family}: verovio says {log[:300]}"
+        assert "<svg" in svg and not log.strip(), f"{family}: the engraving library says {log[:300]}"
         _png(svg, family)
 
 

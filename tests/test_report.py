@@ -209,7 +209,7 @@ def test_page_is_self_contained_with_score_roll_table_and_script(tmp_path, every
     text = (tmp_path / "r" / "report.html").read_text(encoding="utf-8")
     parser = _Collector()
     parser.feed(text)
-    assert 'class="score score-all"' in text and 'class="note' in text  # verovio's engraving, inline
+    assert 'class="score score-all"' in text and 'class="note' in text  # the engraving, inline
     assert text.count('aria-label="Piano roll') >= 1 and 'aria-label="Pace bar by bar"' in text
     assert "table" in parser.tags and text.count("<tr") == len(result.findings) + 1
     assert "not a grade" in text and "on this computer only" in text

@@ -1,9 +1,9 @@
-"""The annotated part engraved as SVG for the page, with verovio (offline, from its wheel).
+"""The annotated part engraved as SVG for the page, with the engraving library (offline, from its wheel).
 
 Conventions
 -----------
 - Input is the annotated MusicXML of :mod:`takescribe.report.annotate`; its note ids
-  (``ts-n<k>``) survive into the SVG as the ids of verovio's ``<g class="note">`` groups,
+  (``ts-n<k>``) survive into the SVG as the ids of the engraving's ``<g class="note">`` groups,
   and every bar is a ``<g class="measure" data-n="<printed number>">``.
 - Every bar shows its number (so a teacher can click it); the whole part is one page, laid
   out in systems for the report's width; the SVG scales to its container.
@@ -21,17 +21,17 @@ __all__ = ["EngraveSettings", "engrave_svg"]
 
 @dataclass(frozen=True)
 class EngraveSettings:
-    """Layout of the engraving (verovio options).
+    """Layout of the engraving (the engraving library's options).
 
     Attributes
     ----------
     page_width : int
-        Page width in verovio's units (tenths of a staff space at scale 100); with ``scale``
+        Page width in the engraving library's units (tenths of a staff space at scale 100); with ``scale``
         it gives systems about as wide as the report's column.
     scale : int
         Percent; 48 keeps five-line staves readable on a laptop screen at 1100 px.
     lyric_size : float
-        Size of the finding words under the notes (verovio's unit, staff spaces); smaller
+        Size of the finding words under the notes (the engraving library's unit, staff spaces); smaller
         than sung text, as they are labels.
     """
 
@@ -54,7 +54,7 @@ def engrave_svg(musicxml: bytes, *, settings: EngraveSettings | None = None, id_
     })
     text = musicxml.decode("utf-8") if isinstance(musicxml, (bytes, bytearray)) else str(musicxml)
     if not toolkit.loadData(text):
-        raise ValueError("verovio could not read the annotated MusicXML")
+        raise ValueError("the engraving library could not read the annotated MusicXML")
     pages = [toolkit.renderToSVG(page) for page in range(1, toolkit.getPageCount() + 1)]
     svg = "".join(_strip_prolog(page) for page in pages)
     if id_suffix:
